@@ -1,0 +1,1 @@
+"""Marginal's numerical library: demand models, fitting, elasticities, optimisation."""

@@ -1,0 +1,1 @@
+"""Marginal's HTTP, storage, jobs and CLI layer."""
