@@ -1,0 +1,100 @@
+"""The FastAPI application: routers, error mapping, limits and shared state."""
+
+from __future__ import annotations
+
+import logging
+import uuid
+from collections.abc import AsyncIterator, Awaitable, Callable
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI, Request, Response
+from fastapi.responses import JSONResponse
+from sqlalchemy.exc import DBAPIError, OperationalError
+
+from service.api import health, imports, keys, observations, products
+from service.db import make_engine, make_session_factory
+from service.errors import install_error_handlers, problem_response
+from service.limits import BodySizeLimit
+from service.settings import Settings, get_settings
+
+API_DESCRIPTION = """\
+Marginal estimates how demand for each product responds to its price and to other
+drivers, and recommends revenue- or profit-maximising prices within business rules.
+
+**Cautions.** Every figure is an estimate from past data, not an instruction. Prices
+outside the range a product was sold at are extrapolations, and responses say so.
+Pricing is regulated: rules on price gouging in emergencies, below-cost sales,
+reference-price ("was") claims, price discrimination and competition law differ by
+jurisdiction. Have a person or a written local policy approve prices before they go
+live; local law and qualified advice take precedence over anything this service says.
+
+Errors are `application/problem+json` (RFC 9457). Authenticate with
+`Authorization: Bearer <key>`; keys carry the scopes `read`, `write` and `admin`.
+"""
+
+logger = logging.getLogger("marginal")
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or get_settings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        yield
+        app.state.engine.dispose()
+
+    app = FastAPI(
+        title="Marginal", version="0.1.0", description=API_DESCRIPTION, lifespan=lifespan,
+        license_info={"name": "Apache-2.0"},
+    )
+    engine = make_engine(settings)
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.read_sessions = make_session_factory(engine, writer=False)
+    app.state.write_sessions = make_session_factory(engine, writer=True)
+
+    install_error_handlers(app)
+    _install_database_outage_handler(app)
+    app.add_middleware(
+        BodySizeLimit, default_limit=settings.body_limit_bytes,
+        import_limit=settings.import_limit_bytes,
+    )
+    app.middleware("http")(_request_id)
+    for router in (health.router, products.router, observations.router, imports.router,
+                   keys.router):
+        app.include_router(router)
+    return app
+
+
+async def _request_id(
+    request: Request, call_next: Callable[[Request], Awaitable[Response]]
+) -> Response:
+    request_id = request.headers.get("x-request-id") or uuid.uuid4().hex
+    request.state.request_id = request_id
+    response = await call_next(request)
+    response.headers["X-Request-ID"] = request_id
+    return response
+
+
+def _install_database_outage_handler(app: FastAPI) -> None:
+    async def outage(request: Request, exc: Exception) -> JSONResponse:
+        if isinstance(exc, DBAPIError) and not _is_outage(exc):
+            logger.exception("database error on %s %s", request.method, request.url.path)
+            return problem_response(
+                status=500, slug="internal", title="Internal error",
+                detail="The server hit an unexpected error; it has been logged.",
+                instance=request.url.path,
+            )
+        logger.warning("database unavailable on %s %s", request.method, request.url.path)
+        return problem_response(
+            status=503, slug="database-unavailable", title="Service temporarily unavailable",
+            detail="The database cannot be reached right now; retry shortly.",
+            headers={"Retry-After": "5"}, instance=request.url.path,
+        )
+
+    app.add_exception_handler(OperationalError, outage)
+    app.add_exception_handler(DBAPIError, outage)
+
+
+def _is_outage(exc: DBAPIError) -> bool:
+    return bool(exc.connection_invalidated) or isinstance(exc, OperationalError)

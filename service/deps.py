@@ -1,0 +1,67 @@
+"""Typed FastAPI dependencies: database sessions, the caller, and scope checks."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from typing import Annotated
+
+from fastapi import Depends, Header, Request
+from sqlalchemy.orm import Session, sessionmaker
+
+from service import auth
+from service.auth import Principal, Scope
+from service.db import session_scope
+from service.settings import Settings
+
+
+def get_settings_dep(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+def _factory(request: Request, name: str) -> sessionmaker[Session]:
+    factory: sessionmaker[Session] = getattr(request.app.state, name)
+    return factory
+
+
+def read_session(request: Request) -> Iterator[Session]:
+    with session_scope(_factory(request, "read_sessions")) as session:
+        yield session
+
+
+def write_session(request: Request) -> Iterator[Session]:
+    with session_scope(_factory(request, "write_sessions")) as session:
+        yield session
+
+
+SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
+ReadSession = Annotated[Session, Depends(read_session)]
+WriteSession = Annotated[Session, Depends(write_session)]
+
+
+def _caller(
+    request: Request,
+    authorization: Annotated[str | None, Header(include_in_schema=False)] = None,
+) -> Principal:
+    with session_scope(_factory(request, "read_sessions")) as session:
+        principal, stale = auth.authenticate(session, authorization)
+    if stale:
+        with session_scope(_factory(request, "write_sessions")) as session:
+            auth.touch_key(session, key_id=principal.key_id)
+    request.state.key_id = principal.key_id
+    return principal
+
+
+def requires(scope: Scope) -> object:
+    """A dependency that admits callers whose key carries ``scope``."""
+
+    def check(principal: Annotated[Principal, Depends(_caller)]) -> Principal:
+        auth.require(principal, scope)
+        return principal
+
+    return Depends(check)
+
+
+READ = requires("read")
+WRITE = requires("write")
+ADMIN = requires("admin")

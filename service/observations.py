@@ -1,0 +1,131 @@
+"""Observation storage: the bulk upsert used by every ingest path, and history reads.
+
+Writes go through the raw driver inside the session's transaction: the ORM costs
+about 20x more per row, and an import is mostly rows. Each backend gets its fastest
+correct upsert: SQLite ``executemany`` with ``ON CONFLICT``; PostgreSQL ``COPY`` into a
+staging table, then one ``INSERT .. SELECT .. ON CONFLICT`` that reports inserts.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Sequence
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from service.tables import ObservationRow
+
+# (product_id, period ISO date, price, units, unit_cost, in_stock, covariates JSON text)
+ObservationTuple = tuple[int, str, float, float, float | None, bool | None, str | None]
+
+_COLUMNS = "product_id, period, price, units, unit_cost, in_stock, covariates"
+_UPDATE = (
+    "price = excluded.price, units = excluded.units, unit_cost = excluded.unit_cost, "
+    "in_stock = excluded.in_stock, covariates = excluded.covariates"
+)
+
+
+class ObservationWriter:
+    """Upserts observations in chunks within the caller's transaction and counts outcomes.
+
+    On SQLite the transaction holds the write lock from BEGIN IMMEDIATE, so the change in
+    the table's row count is exactly the number of new periods.
+    """
+
+    def __init__(self, session: Session) -> None:
+        self._conn = session.connection()
+        self._dialect = self._conn.dialect.name
+        self._driver: Any = self._conn.connection.driver_connection
+        self.rows = 0
+        self._inserted = 0
+        self._count_before = 0
+        if self._dialect == "sqlite":
+            self._count_before = self._table_count()
+        else:
+            with self._driver.cursor() as cur:
+                cur.execute(
+                    "CREATE TEMP TABLE IF NOT EXISTS observation_stage ("
+                    "product_id integer, period date, price double precision, "
+                    "units double precision, unit_cost double precision, in_stock boolean, "
+                    "covariates jsonb) ON COMMIT DELETE ROWS"
+                )
+
+    def _table_count(self) -> int:
+        cur = self._driver.cursor()
+        try:
+            cur.execute("SELECT count(*) FROM observations")
+            return int(cur.fetchone()[0])
+        finally:
+            cur.close()
+
+    def write(self, rows: Sequence[ObservationTuple]) -> None:
+        if not rows:
+            return
+        self.rows += len(rows)
+        if self._dialect == "sqlite":
+            self._driver.executemany(
+                f"INSERT INTO observations ({_COLUMNS}) VALUES (?, ?, ?, ?, ?, ?, ?) "
+                f"ON CONFLICT (product_id, period) DO UPDATE SET {_UPDATE}",
+                rows,
+            )
+            return
+        with self._driver.cursor() as cur:
+            with cur.copy(f"COPY observation_stage ({_COLUMNS}) FROM STDIN") as copy:
+                for row in rows:
+                    copy.write_row(row)
+            cur.execute(
+                f"WITH upserted AS (INSERT INTO observations ({_COLUMNS}) "
+                f"SELECT {_COLUMNS} FROM observation_stage "
+                f"ON CONFLICT (product_id, period) DO UPDATE SET {_UPDATE} "
+                "RETURNING (xmax = 0) AS was_inserted) "
+                "SELECT count(*) FILTER (WHERE was_inserted) FROM upserted"
+            )
+            self._inserted += int(cur.fetchone()[0])
+            cur.execute("TRUNCATE observation_stage")
+
+    def finish(self) -> tuple[int, int]:
+        """(inserted, updated) for everything written so far."""
+        if self._dialect == "sqlite":
+            inserted = self._table_count() - self._count_before
+        else:
+            inserted = self._inserted
+        return inserted, self.rows - inserted
+
+
+def list_range(
+    session: Session,
+    *,
+    product_id: int,
+    start: dt.date | None,
+    end: dt.date | None,
+    limit: int,
+    after: dt.date | None,
+) -> tuple[list[ObservationRow], bool]:
+    """One page of a product's history, oldest first, and whether more rows follow."""
+    query = (
+        select(ObservationRow)
+        .where(ObservationRow.product_id == product_id)
+        .order_by(ObservationRow.period)
+        .limit(limit + 1)
+    )
+    if start is not None:
+        query = query.where(ObservationRow.period >= start)
+    if end is not None:
+        query = query.where(ObservationRow.period <= end)
+    if after is not None:
+        query = query.where(ObservationRow.period > after)
+    rows = list(session.scalars(query))
+    return rows[:limit], len(rows) > limit
+
+
+def count_for(session: Session, *, product_id: int) -> int:
+    return int(
+        session.scalar(
+            select(func.count()).select_from(ObservationRow).where(
+                ObservationRow.product_id == product_id
+            )
+        )
+        or 0
+    )

@@ -1,0 +1,48 @@
+"""Runtime settings: one object, read from the environment (prefix ``MARGINAL_``)."""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    """Everything configurable about a running Marginal instance."""
+
+    model_config = SettingsConfigDict(env_prefix="MARGINAL_", env_file=None, extra="ignore")
+
+    database_url: str = Field(
+        default=f"sqlite:///{Path('var') / 'marginal.db'}",
+        description="SQLAlchemy URL: sqlite:///path or postgresql+psycopg://user@host/db",
+    )
+    database_schema: str | None = Field(
+        default=None, description="PostgreSQL schema to use (search_path); default: public"
+    )
+    host: str = "127.0.0.1"
+    port: int = 8000
+    workers: int = 1
+    log_level: Literal["debug", "info", "warning", "error"] = "info"
+    body_limit_bytes: int = Field(
+        default=1_048_576, description="Largest JSON request body accepted (413 beyond it)"
+    )
+    import_limit_bytes: int = Field(
+        default=256 * 1_048_576, description="Largest CSV import body accepted (413 beyond it)"
+    )
+    sqlite_busy_timeout_ms: int = 30_000
+    import_chunk_rows: int = Field(
+        default=20_000, description="Rows written per batch during a CSV import"
+    )
+
+    @property
+    def is_sqlite(self) -> bool:
+        return self.database_url.startswith("sqlite")
+
+
+@lru_cache(maxsize=1)
+def get_settings() -> Settings:
+    """The process-wide settings, built on first use (tests override by passing their own)."""
+    return Settings()
