@@ -44,7 +44,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.state.engine.dispose()
 
     app = FastAPI(
-        title="Marginal", version="0.1.0", description=API_DESCRIPTION, lifespan=lifespan,
+        title="Marginal",
+        version="0.1.0",
+        description=API_DESCRIPTION,
+        lifespan=lifespan,
         license_info={"name": "Apache-2.0"},
     )
     engine = make_engine(settings)
@@ -56,12 +59,18 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     install_error_handlers(app)
     _install_database_outage_handler(app)
     app.add_middleware(
-        BodySizeLimit, default_limit=settings.body_limit_bytes,
+        BodySizeLimit,
+        default_limit=settings.body_limit_bytes,
         import_limit=settings.import_limit_bytes,
     )
     app.middleware("http")(_request_id)
-    for router in (health.router, products.router, observations.router, imports.router,
-                   keys.router):
+    for router in (
+        health.router,
+        products.router,
+        observations.router,
+        imports.router,
+        keys.router,
+    ):
         app.include_router(router)
     return app
 
@@ -81,15 +90,20 @@ def _install_database_outage_handler(app: FastAPI) -> None:
         if isinstance(exc, DBAPIError) and not _is_outage(exc):
             logger.exception("database error on %s %s", request.method, request.url.path)
             return problem_response(
-                status=500, slug="internal", title="Internal error",
+                status=500,
+                slug="internal",
+                title="Internal error",
                 detail="The server hit an unexpected error; it has been logged.",
                 instance=request.url.path,
             )
         logger.warning("database unavailable on %s %s", request.method, request.url.path)
         return problem_response(
-            status=503, slug="database-unavailable", title="Service temporarily unavailable",
+            status=503,
+            slug="database-unavailable",
+            title="Service temporarily unavailable",
             detail="The database cannot be reached right now; retry shortly.",
-            headers={"Retry-After": "5"}, instance=request.url.path,
+            headers={"Retry-After": "5"},
+            instance=request.url.path,
         )
 
     app.add_exception_handler(OperationalError, outage)

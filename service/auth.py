@@ -52,7 +52,10 @@ def create_key(session: Session, *, name: str, scopes: list[str]) -> NewKey:
     key_id = secrets.token_hex(6)
     secret = secrets.token_urlsafe(32)
     row = ApiKeyRow(
-        id=key_id, name=name, scopes=sorted(set(scopes)), secret_hash=hash_secret(secret),
+        id=key_id,
+        name=name,
+        scopes=sorted(set(scopes)),
+        secret_hash=hash_secret(secret),
         created_at=utcnow(),
     )
     session.add(row)

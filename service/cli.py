@@ -33,9 +33,13 @@ def _serve(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
     uvicorn.run(
-        "service.app:create_app", factory=True, host=args.host or settings.host,
-        port=args.port or settings.port, workers=args.workers or settings.workers,
-        log_level=settings.log_level, proxy_headers=False,
+        "service.app:create_app",
+        factory=True,
+        host=args.host or settings.host,
+        port=args.port or settings.port,
+        workers=args.workers or settings.workers,
+        log_level=settings.log_level,
+        proxy_headers=False,
     )
     return 0
 
@@ -44,8 +48,10 @@ def _demo(args: argparse.Namespace, settings: Settings) -> int:
     from service import demo
 
     summary = demo.load(settings, seed=args.seed)
-    print(f"demo catalogue loaded: {summary.products} products, "
-          f"{summary.observations} observations ({summary.inserted} new, {summary.updated} replaced)")
+    print(
+        f"demo catalogue loaded: {summary.products} products, "
+        f"{summary.observations} observations ({summary.inserted} new, {summary.updated} replaced)"
+    )
     return 0
 
 
@@ -59,14 +65,17 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
         with session_scope(factory) as session:
             if args.action == "create":
                 new = auth.create_key(session, name=args.name, scopes=args.scope)
-                print(f"created key {new.row.id} ({args.name}) with scopes {', '.join(new.row.scopes)}")
+                scopes = ", ".join(new.row.scopes)
+                print(f"created key {new.row.id} ({args.name}) with scopes {scopes}")
                 print("store the secret now; it is not shown again:")
                 print(new.secret)
             elif args.action == "list":
                 for row in auth.list_keys(session):
                     state = "revoked" if row.revoked_at else "active"
                     used = row.last_used_at.isoformat() if row.last_used_at else "never"
-                    print(f"{row.id}\t{row.name}\t{','.join(row.scopes)}\t{state}\tlast used {used}")
+                    print(
+                        f"{row.id}\t{row.name}\t{','.join(row.scopes)}\t{state}\tlast used {used}"
+                    )
             else:
                 auth.revoke_key(session, key_id=args.key_id)
                 print(f"revoked key {args.key_id}")
@@ -120,8 +129,13 @@ def build_parser() -> argparse.ArgumentParser:
     key_actions = keys.add_subparsers(dest="action", required=True)
     create = key_actions.add_parser("create", help="create a key; the secret is the last line")
     create.add_argument("--name", required=True)
-    create.add_argument("--scope", action="append", required=True,
-                        choices=["read", "write", "admin"], help="repeat for several scopes")
+    create.add_argument(
+        "--scope",
+        action="append",
+        required=True,
+        choices=["read", "write", "admin"],
+        help="repeat for several scopes",
+    )
     key_actions.add_parser("list", help="list keys (never secrets)")
     revoke = key_actions.add_parser("revoke", help="revoke a key by id")
     revoke.add_argument("key_id")

@@ -20,7 +20,10 @@ def make_engine(settings: Settings) -> Engine:
         _ensure_sqlite_folder(url)
         engine = create_engine(
             url,
-            connect_args={"timeout": settings.sqlite_busy_timeout_ms / 1000, "check_same_thread": False},
+            connect_args={
+                "timeout": settings.sqlite_busy_timeout_ms / 1000,
+                "check_same_thread": False,
+            },
         )
         event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
         event.listen(engine, "begin", _sqlite_on_begin)

@@ -6,6 +6,7 @@ from collections.abc import Iterator
 from typing import Annotated
 
 from fastapi import Depends, Header, Request
+from fastapi.params import Depends as DependsParam
 from sqlalchemy.orm import Session, sessionmaker
 
 from service import auth
@@ -52,14 +53,15 @@ def _caller(
     return principal
 
 
-def requires(scope: Scope) -> object:
+def requires(scope: Scope) -> DependsParam:
     """A dependency that admits callers whose key carries ``scope``."""
 
     def check(principal: Annotated[Principal, Depends(_caller)]) -> Principal:
         auth.require(principal, scope)
         return principal
 
-    return Depends(check)
+    dependency: DependsParam = Depends(check)
+    return dependency
 
 
 READ = requires("read")

@@ -115,19 +115,29 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(ServiceError)
     async def _service_error(request: Request, exc: ServiceError) -> JSONResponse:
         return problem_response(
-            status=exc.status, slug=exc.slug, title=exc.title, detail=exc.detail,
-            errors=exc.errors, headers=exc.headers or None, instance=request.url.path,
+            status=exc.status,
+            slug=exc.slug,
+            title=exc.title,
+            detail=exc.detail,
+            errors=exc.errors,
+            headers=exc.headers or None,
+            instance=request.url.path,
         )
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
         items = [
-            ErrorItem(field=_location(tuple(e.get("loc", ()))), message=str(e.get("msg", "invalid")))
+            ErrorItem(
+                field=_location(tuple(e.get("loc", ()))), message=str(e.get("msg", "invalid"))
+            )
             for e in exc.errors()
         ]
         return problem_response(
-            status=422, slug="invalid-input", title="The request has invalid input",
-            detail=f"{len(items)} problem(s) with the request", errors=items,
+            status=422,
+            slug="invalid-input",
+            title="The request has invalid input",
+            detail=f"{len(items)} problem(s) with the request",
+            errors=items,
             instance=request.url.path,
         )
 
@@ -135,16 +145,21 @@ def install_error_handlers(app: FastAPI) -> None:
     async def _http_error(request: Request, exc: StarletteHTTPException) -> JSONResponse:
         titles = {404: "Not found", 405: "Method not allowed"}
         return problem_response(
-            status=exc.status_code, slug=f"http-{exc.status_code}",
-            title=titles.get(exc.status_code, "Request refused"), detail=str(exc.detail),
-            headers=getattr(exc, "headers", None), instance=request.url.path,
+            status=exc.status_code,
+            slug=f"http-{exc.status_code}",
+            title=titles.get(exc.status_code, "Request refused"),
+            detail=str(exc.detail),
+            headers=getattr(exc, "headers", None),
+            instance=request.url.path,
         )
 
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> JSONResponse:
         logger.exception("unhandled error on %s %s", request.method, request.url.path)
         return problem_response(
-            status=500, slug="internal", title="Internal error",
+            status=500,
+            slug="internal",
+            title="Internal error",
             detail="The server hit an unexpected error; it has been logged.",
             instance=request.url.path,
         )

@@ -12,7 +12,7 @@ import datetime as dt
 import io
 import math
 import re
-from collections.abc import Iterator, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import IO
 
@@ -21,7 +21,7 @@ from sqlalchemy.orm import Session
 
 from service import products
 from service.errors import ErrorItem, InvalidInput
-from service.observations import ObservationTuple, ObservationWriter
+from service.observations import ObservationWriter
 from service.schemas import NAME_PATTERN, SKU_PATTERN, ObservationIn
 
 REQUIRED_COLUMNS = ("sku", "period", "price", "units")
@@ -56,19 +56,30 @@ def upsert_batch(
     problems: list[ErrorItem] = []
     for index, obs in enumerate(observations):
         if obs.period in seen:
-            problems.append(ErrorItem(
-                field=f"observations[{index}].period",
-                message=f"period {obs.period} already given at observations[{seen[obs.period]}]",
-            ))
+            problems.append(
+                ErrorItem(
+                    field=f"observations[{index}].period",
+                    message=f"period {obs.period} repeats observations[{seen[obs.period]}]",
+                )
+            )
         seen.setdefault(obs.period, index)
     if problems:
         raise InvalidInput("the batch repeats a period; nothing was written", errors=problems)
     writer = ObservationWriter(session)
-    writer.write([
-        (product_id, o.period.isoformat(), o.price, o.units, o.unit_cost, o.in_stock,
-         covariates_json(o.covariates))
-        for o in observations
-    ])
+    writer.write(
+        [
+            (
+                product_id,
+                o.period.isoformat(),
+                o.price,
+                o.units,
+                o.unit_cost,
+                o.in_stock,
+                covariates_json(o.covariates),
+            )
+            for o in observations
+        ]
+    )
     inserted, updated = writer.finish()
     return UpsertOutcome(rows=writer.rows, inserted=inserted, updated=updated)
 
@@ -107,11 +118,14 @@ def import_csv(
     try:
         header = next(reader, None)
     except (UnicodeDecodeError, csv.Error) as exc:
-        raise InvalidInput("the file is not UTF-8 CSV", errors=[
-            ErrorItem(line=1, message=str(exc))]) from None
+        raise InvalidInput(
+            "the file is not UTF-8 CSV", errors=[ErrorItem(line=1, message=str(exc))]
+        ) from None
     if header is None or not any(h.strip() for h in header):
-        raise InvalidInput("the file is empty: expected a header line and rows", errors=[
-            ErrorItem(line=1, message="no header line")])
+        raise InvalidInput(
+            "the file is empty: expected a header line and rows",
+            errors=[ErrorItem(line=1, message="no header line")],
+        )
     layout = _read_header([h.strip() for h in header], errors)
     errors.raise_if_any()
     assert layout is not None
@@ -138,13 +152,16 @@ def import_csv(
             for line_no, row in zip(pending_lines, pending, strict=True):
                 if row[0] in missing and row[0] not in unknown_reported:
                     unknown_reported.add(row[0])
-                    errors.add(line_no, "sku",
-                               f"unknown sku {row[0]!r} (send create_products=true to create it)")
+                    errors.add(
+                        line_no,
+                        "sku",
+                        f"unknown sku {row[0]!r} (send create_products=true to create it)",
+                    )
         # A key repeated inside one chunk would make PostgreSQL refuse the statement; the
         # final duplicate check reports it, so just stop writing.
         repeated = len({(r[0], r[1]) for r in pending}) != len(pending)
         if not errors.items and not repeated:
-            writer.write([(sku_ids[r[0]], *r[1:]) for r in pending])  # type: ignore[misc]
+            writer.write([(sku_ids[r[0]], *r[1:]) for r in pending])
         pending.clear()
         pending_lines.clear()
 
@@ -207,15 +224,20 @@ def _read_header(names: list[str], errors: _CsvErrors) -> _Layout | None:
         if name in REQUIRED_COLUMNS or name in OPTIONAL_COLUMNS:
             continue
         if not _NAME_RE.match(name):
-            errors.add(1, name or f"#{index + 1}",
-                       "covariate column names start with a letter or '_' and use letters, "
-                       "digits, '_', '.', '-' (at most 64)")
+            errors.add(
+                1,
+                name or f"#{index + 1}",
+                "covariate column names start with a letter or '_' and use letters, "
+                "digits, '_', '.', '-' (at most 64)",
+            )
         covariates.append((index, name))
     if errors.items:
         return None
     return _Layout(
         width=len(names),
-        sku=names.index("sku"), period=names.index("period"), price=names.index("price"),
+        sku=names.index("sku"),
+        period=names.index("period"),
+        price=names.index("price"),
         units=names.index("units"),
         unit_cost=names.index("unit_cost") if "unit_cost" in seen else None,
         in_stock=names.index("in_stock") if "in_stock" in seen else None,
@@ -314,6 +336,6 @@ def _report_duplicates(keys: np.ndarray, lines: np.ndarray, errors: _CsvErrors) 
     order = np.argsort(keys, kind="stable")
     sorted_keys = keys[order]
     repeats = np.flatnonzero(sorted_keys[1:] == sorted_keys[:-1])
-    for position in repeats[: MAX_REPORTED_ERRORS]:
+    for position in repeats[:MAX_REPORTED_ERRORS]:
         first, again = int(lines[order[position]]), int(lines[order[position + 1]])
         errors.add(again, "period", f"sku and period repeat line {first}")

@@ -59,7 +59,10 @@ class BodySizeLimit:
     @staticmethod
     async def _refuse(scope: Scope, receive: Receive, send: Send, limit: int) -> None:
         response = problem_response(
-            status=413, slug="payload-too-large", title="Request body too large",
-            detail=f"the body exceeds the limit of {limit} bytes", instance=scope.get("path"),
+            status=413,
+            slug="payload-too-large",
+            title="Request body too large",
+            detail=f"the body exceeds the limit of {limit} bytes",
+            instance=scope.get("path"),
         )
         await response(scope, receive, send)

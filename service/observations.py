@@ -38,6 +38,7 @@ class ObservationWriter:
         self._conn = session.connection()
         self._dialect = self._conn.dialect.name
         self._driver: Any = self._conn.connection.driver_connection
+        assert self._driver is not None
         self.rows = 0
         self._inserted = 0
         self._count_before = 0
@@ -123,9 +124,9 @@ def list_range(
 def count_for(session: Session, *, product_id: int) -> int:
     return int(
         session.scalar(
-            select(func.count()).select_from(ObservationRow).where(
-                ObservationRow.product_id == product_id
-            )
+            select(func.count())
+            .select_from(ObservationRow)
+            .where(ObservationRow.product_id == product_id)
         )
         or 0
     )

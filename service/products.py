@@ -45,8 +45,16 @@ def put(session: Session, *, sku: str, fields: dict[str, Any]) -> tuple[ProductR
     if row is None:
         row = ProductRow(sku=sku, created_at=utcnow())
         session.add(row)
-    for name in ("name", "family", "currency", "unit_cost", "current_price", "min_price",
-                 "max_price", "default_spec"):
+    for name in (
+        "name",
+        "family",
+        "currency",
+        "unit_cost",
+        "current_price",
+        "min_price",
+        "max_price",
+        "default_spec",
+    ):
         setattr(row, name, fields.get(name))
     row.currency = row.currency or DEFAULT_CURRENCY
     row.updated_at = utcnow()
@@ -60,8 +68,11 @@ REQUIRED_FIELDS = ("name", "currency")
 def update(session: Session, *, sku: str, changes: dict[str, Any]) -> ProductRow:
     """Apply a partial change; null clears optional fields and is refused for required ones."""
     row = get_or_raise(session, sku=sku)
-    problems = [ErrorItem(field=name, message="cannot be cleared")
-                for name in REQUIRED_FIELDS if name in changes and changes[name] is None]
+    problems = [
+        ErrorItem(field=name, message="cannot be cleared")
+        for name in REQUIRED_FIELDS
+        if name in changes and changes[name] is None
+    ]
     for name, value in changes.items():
         setattr(row, name, value)
     if row.min_price is not None and row.max_price is not None and row.min_price > row.max_price:
@@ -88,8 +99,10 @@ def ids_by_sku(session: Session, *, skus: Iterable[str] | None = None) -> dict[s
 def create_bare(session: Session, *, skus: Iterable[str]) -> dict[str, int]:
     """Create minimal products (name = sku) for an import that may create unknown skus."""
     now = utcnow()
-    rows = [ProductRow(sku=s, name=s, currency=DEFAULT_CURRENCY, created_at=now, updated_at=now)
-            for s in skus]
+    rows = [
+        ProductRow(sku=s, name=s, currency=DEFAULT_CURRENCY, created_at=now, updated_at=now)
+        for s in skus
+    ]
     session.add_all(rows)
     session.flush()
     return {r.sku: r.id for r in rows}

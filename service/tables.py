@@ -15,7 +15,6 @@ from sqlalchemy import (
     Integer,
     MetaData,
     String,
-
     UniqueConstraint,
 )
 from sqlalchemy.dialects.postgresql import JSONB
@@ -32,11 +31,14 @@ NAMING_CONVENTION = {
 # JSON documents: JSONB on PostgreSQL, JSON text elsewhere.
 JsonDoc = JSON().with_variant(JSONB(), "postgresql")
 
+
 def utcnow() -> dt.datetime:
     return dt.datetime.now(dt.UTC)
 
+
 class Base(DeclarativeBase):
     metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
 
 class ProductRow(Base):
     __tablename__ = "products"
@@ -56,6 +58,7 @@ class ProductRow(Base):
         DateTime(timezone=True), default=utcnow, onupdate=utcnow
     )
 
+
 class ObservationRow(Base):
     __tablename__ = "observations"
     __table_args__ = (UniqueConstraint("product_id", "period"),)
@@ -70,6 +73,7 @@ class ObservationRow(Base):
     # Named numeric covariates as one JSON object: {"rival_price": 1.02, "promo": 0}.
     covariates: Mapped[dict[str, float] | None] = mapped_column(JsonDoc)
 
+
 class ApiKeyRow(Base):
     __tablename__ = "api_keys"
 
@@ -81,12 +85,15 @@ class ApiKeyRow(Base):
     last_used_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
     revoked_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
 
+
 class FitRow(Base):
     __tablename__ = "fits"
     __table_args__ = (UniqueConstraint("product_id", "version"),)
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"), index=True)
+    product_id: Mapped[int] = mapped_column(
+        ForeignKey("products.id", ondelete="CASCADE"), index=True
+    )
     version: Mapped[int] = mapped_column(Integer)
     status: Mapped[str] = mapped_column(String(16))
     form: Mapped[str] = mapped_column(String(16))
@@ -98,16 +105,20 @@ class FitRow(Base):
     window_end: Mapped[dt.date | None] = mapped_column(Date)
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
 
+
 class RecommendationRow(Base):
     __tablename__ = "recommendations"
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
-    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"), index=True)
+    product_id: Mapped[int] = mapped_column(
+        ForeignKey("products.id", ondelete="CASCADE"), index=True
+    )
     fit_id: Mapped[int | None] = mapped_column(ForeignKey("fits.id", ondelete="SET NULL"))
     objective: Mapped[str] = mapped_column(String(16))
     request: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
     result: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
 
 class JobRow(Base):
     __tablename__ = "jobs"
@@ -125,6 +136,7 @@ class JobRow(Base):
     started_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
     finished_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
 
+
 class ScheduleRow(Base):
     __tablename__ = "schedules"
 
@@ -137,5 +149,6 @@ class ScheduleRow(Base):
     updated_at: Mapped[dt.datetime] = mapped_column(
         DateTime(timezone=True), default=utcnow, onupdate=utcnow
     )
+
 
 ALL_TABLES = [t.name for t in Base.metadata.sorted_tables]

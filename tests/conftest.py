@@ -90,7 +90,8 @@ def _postgres_status() -> str | None:
 
 @pytest.fixture(scope="session", params=BACKENDS)
 def database(
-    request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory,
+    request: pytest.FixtureRequest,
+    tmp_path_factory: pytest.TempPathFactory,
     _postgres_status: str | None,
 ) -> Iterator[Database]:
     """A migrated database per backend, shared by the session and cleaned per test."""

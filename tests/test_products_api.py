@@ -9,8 +9,15 @@ from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
 
-TIN = {"name": "Jasmine Pearl tin 100 g", "family": "green", "currency": "EUR",
-       "unit_cost": 2.8, "current_price": 6.49, "min_price": 4.0, "max_price": 9.0}
+TIN = {
+    "name": "Jasmine Pearl tin 100 g",
+    "family": "green",
+    "currency": "EUR",
+    "unit_cost": 2.8,
+    "current_price": 6.49,
+    "min_price": 4.0,
+    "max_price": 9.0,
+}
 
 
 def test_put_creates_then_replaces(client: TestClient, headers: dict[str, str]) -> None:
@@ -30,8 +37,9 @@ def test_get_patch_delete(client: TestClient, headers: dict[str, str], db: Datab
     client.put("/v1/products/TEA-002", json=TIN, headers=headers)
     got = client.get("/v1/products/TEA-002", headers=headers)
     assert got.status_code == 200 and got.json()["family"] == "green"
-    patched = client.patch("/v1/products/TEA-002", json={"current_price": 6.99, "family": None},
-                           headers=headers)
+    patched = client.patch(
+        "/v1/products/TEA-002", json={"current_price": 6.99, "family": None}, headers=headers
+    )
     assert patched.status_code == 200
     assert patched.json()["current_price"] == 6.99
     assert patched.json()["family"] is None

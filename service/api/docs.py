@@ -26,7 +26,9 @@ def problems(*codes: int) -> dict[int | str, dict[str, Any]]:
         code: {
             "model": Problem,
             "description": _DESCRIPTIONS[code],
-            "content": {"application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}},
+            "content": {
+                "application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}
+            },
         }
         for code in wanted
     }

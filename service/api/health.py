@@ -18,7 +18,9 @@ def health() -> Health:
 
 
 @router.get(
-    "/readyz", response_model=Readiness, operation_id="readiness",
+    "/readyz",
+    response_model=Readiness,
+    operation_id="readiness",
     summary="Readiness: database reachable and schema at the latest migration",
     responses={503: {"model": Readiness, "description": "Not ready"}},
 )
@@ -34,7 +36,11 @@ def readiness(request: Request) -> JSONResponse:
     body = Readiness(
         status="ready" if ready else "not ready",
         database="reachable" if reachable else "unreachable",
-        schema_revision=current, expected_revision=expected,
+        schema_revision=current,
+        expected_revision=expected,
     )
-    return JSONResponse(body.model_dump(), status_code=200 if ready else 503,
-                        headers=None if ready else {"Retry-After": "5"})
+    return JSONResponse(
+        body.model_dump(),
+        status_code=200 if ready else 503,
+        headers=None if ready else {"Retry-After": "5"},
+    )

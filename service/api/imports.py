@@ -24,7 +24,10 @@ CSV_EXAMPLE = (
 
 
 @router.post(
-    "", response_model=ImportResult, dependencies=[WRITE], operation_id="import_observations",
+    "",
+    response_model=ImportResult,
+    dependencies=[WRITE],
+    operation_id="import_observations",
     summary="Import observations from CSV (all rows or none)",
     responses=problems(413, 415, 422),
     openapi_extra={
@@ -60,12 +63,16 @@ async def import_observations(
         def run() -> ingest.UpsertOutcome:
             with session_scope(request.app.state.write_sessions) as session:
                 return ingest.import_csv(
-                    session, spool, create_products=create_products,  # type: ignore[arg-type]
+                    session,
+                    spool,
+                    create_products=create_products,
                     chunk_rows=settings.import_chunk_rows,
                 )
 
         outcome = await run_in_threadpool(run)
     return ImportResult(
-        rows=outcome.rows, inserted=outcome.inserted, updated=outcome.updated,
+        rows=outcome.rows,
+        inserted=outcome.inserted,
+        updated=outcome.updated,
         products_created=outcome.products_created,
     )

@@ -16,8 +16,12 @@ router = APIRouter(prefix="/v1/api-keys", tags=["api keys"])
 
 
 @router.post(
-    "", response_model=ApiKeyCreated, status_code=status.HTTP_201_CREATED,
-    dependencies=[ADMIN], operation_id="create_api_key", summary="Create an API key",
+    "",
+    response_model=ApiKeyCreated,
+    status_code=status.HTTP_201_CREATED,
+    dependencies=[ADMIN],
+    operation_id="create_api_key",
+    summary="Create an API key",
     responses=problems(422),
 )
 def create_api_key(body: ApiKeyIn, session: WriteSession) -> ApiKeyCreated:
@@ -26,16 +30,26 @@ def create_api_key(body: ApiKeyIn, session: WriteSession) -> ApiKeyCreated:
 
 
 @router.get(
-    "", response_model=Page[ApiKeyOut], dependencies=[ADMIN], operation_id="list_api_keys",
-    summary="List API keys (never their secrets)", responses=problems(),
+    "",
+    response_model=Page[ApiKeyOut],
+    dependencies=[ADMIN],
+    operation_id="list_api_keys",
+    summary="List API keys (never their secrets)",
+    responses=problems(),
 )
 def list_api_keys(session: ReadSession) -> Page[ApiKeyOut]:
-    return Page[ApiKeyOut](items=[api_key_out(r) for r in auth.list_keys(session)], next_cursor=None)
+    return Page[ApiKeyOut](
+        items=[api_key_out(r) for r in auth.list_keys(session)], next_cursor=None
+    )
 
 
 @router.delete(
-    "/{key_id}", status_code=status.HTTP_204_NO_CONTENT, dependencies=[ADMIN],
-    operation_id="revoke_api_key", summary="Revoke an API key", responses=problems(404, 422),
+    "/{key_id}",
+    status_code=status.HTTP_204_NO_CONTENT,
+    dependencies=[ADMIN],
+    operation_id="revoke_api_key",
+    summary="Revoke an API key",
+    responses=problems(404, 422),
 )
 def revoke_api_key(
     key_id: Annotated[str, Path(pattern=r"^[0-9a-f]{1,16}$")], session: WriteSession

@@ -19,11 +19,16 @@ router = APIRouter(prefix="/v1/products/{sku}/observations", tags=["observations
 
 
 @router.post(
-    "", response_model=UpsertCounts, dependencies=[WRITE], operation_id="upsert_observations",
+    "",
+    response_model=UpsertCounts,
+    dependencies=[WRITE],
+    operation_id="upsert_observations",
     summary="Insert or replace periods of a product's history",
     responses=problems(404, 413, 422),
 )
-def upsert_observations(sku: SkuPath, body: ObservationBatch, session: WriteSession) -> UpsertCounts:
+def upsert_observations(
+    sku: SkuPath, body: ObservationBatch, session: WriteSession
+) -> UpsertCounts:
     """Keyed on period: a period sent again replaces the stored one. All rows or none."""
     product = products.get_or_raise(session, sku=sku)
     outcome = ingest.upsert_batch(session, product_id=product.id, observations=body.observations)
@@ -31,8 +36,11 @@ def upsert_observations(sku: SkuPath, body: ObservationBatch, session: WriteSess
 
 
 @router.get(
-    "", response_model=Page[ObservationOut], dependencies=[READ],
-    operation_id="list_observations", summary="Read a product's history, oldest first",
+    "",
+    response_model=Page[ObservationOut],
+    dependencies=[READ],
+    operation_id="list_observations",
+    summary="Read a product's history, oldest first",
     responses=problems(404, 422),
 )
 def list_observations(
@@ -41,11 +49,15 @@ def list_observations(
     start: Annotated[dt.date | None, Query(description="First period to include")] = None,
     end: Annotated[dt.date | None, Query(description="Last period to include")] = None,
     limit: Annotated[int, Query(ge=1, le=5000)] = 1000,
-    cursor: Annotated[str | None, Query(description="From `next_cursor` of the previous page")] = None,
+    cursor: Annotated[
+        str | None, Query(description="From `next_cursor` of the previous page")
+    ] = None,
 ) -> Page[ObservationOut]:
     product = products.get_or_raise(session, sku=sku)
     position = decode_cursor(cursor)
-    after = dt.date.fromisoformat(str(position["after"])) if position and "after" in position else None
+    after = (
+        dt.date.fromisoformat(str(position["after"])) if position and "after" in position else None
+    )
     rows, more = observations.list_range(
         session, product_id=product.id, start=start, end=end, limit=limit, after=after
     )

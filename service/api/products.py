@@ -18,11 +18,17 @@ SkuPath = Annotated[str, Path(pattern=SKU_PATTERN, description="The product's sk
 
 
 @router.put(
-    "/{sku}", response_model=ProductOut, dependencies=[WRITE], operation_id="put_product",
-    summary="Create or replace a product", responses=problems(422),
+    "/{sku}",
+    response_model=ProductOut,
+    dependencies=[WRITE],
+    operation_id="put_product",
+    summary="Create or replace a product",
+    responses=problems(422),
     status_code=status.HTTP_200_OK,
 )
-def put_product(sku: SkuPath, body: ProductIn, session: WriteSession, response: Response) -> ProductOut:
+def put_product(
+    sku: SkuPath, body: ProductIn, session: WriteSession, response: Response
+) -> ProductOut:
     """Creates the product (201) or replaces every field of an existing one (200)."""
     row, created = products.put(session, sku=sku, fields=body.model_dump())
     if created:
@@ -31,16 +37,24 @@ def put_product(sku: SkuPath, body: ProductIn, session: WriteSession, response: 
 
 
 @router.get(
-    "/{sku}", response_model=ProductOut, dependencies=[READ], operation_id="get_product",
-    summary="Read a product", responses=problems(404, 422),
+    "/{sku}",
+    response_model=ProductOut,
+    dependencies=[READ],
+    operation_id="get_product",
+    summary="Read a product",
+    responses=problems(404, 422),
 )
 def get_product(sku: SkuPath, session: ReadSession) -> ProductOut:
     return product_out(products.get_or_raise(session, sku=sku))
 
 
 @router.patch(
-    "/{sku}", response_model=ProductOut, dependencies=[WRITE], operation_id="patch_product",
-    summary="Change some fields of a product", responses=problems(404, 422),
+    "/{sku}",
+    response_model=ProductOut,
+    dependencies=[WRITE],
+    operation_id="patch_product",
+    summary="Change some fields of a product",
+    responses=problems(404, 422),
 )
 def patch_product(sku: SkuPath, body: ProductPatch, session: WriteSession) -> ProductOut:
     row = products.update(session, sku=sku, changes=body.model_dump(exclude_unset=True))
@@ -48,8 +62,11 @@ def patch_product(sku: SkuPath, body: ProductPatch, session: WriteSession) -> Pr
 
 
 @router.delete(
-    "/{sku}", status_code=status.HTTP_204_NO_CONTENT, dependencies=[ADMIN],
-    operation_id="delete_product", summary="Delete a product and its history",
+    "/{sku}",
+    status_code=status.HTTP_204_NO_CONTENT,
+    dependencies=[ADMIN],
+    operation_id="delete_product",
+    summary="Delete a product and its history",
     responses=problems(404, 422),
 )
 def delete_product(sku: SkuPath, session: WriteSession) -> Response:
@@ -58,14 +75,20 @@ def delete_product(sku: SkuPath, session: WriteSession) -> Response:
 
 
 @router.get(
-    "", response_model=Page[ProductOut], dependencies=[READ], operation_id="list_products",
-    summary="List products, optionally one family", responses=problems(422),
+    "",
+    response_model=Page[ProductOut],
+    dependencies=[READ],
+    operation_id="list_products",
+    summary="List products, optionally one family",
+    responses=problems(422),
 )
 def list_products(
     session: ReadSession,
     family: Annotated[str | None, Query(pattern=SKU_PATTERN)] = None,
     limit: Annotated[int, Query(ge=1, le=500)] = 100,
-    cursor: Annotated[str | None, Query(description="From `next_cursor` of the previous page")] = None,
+    cursor: Annotated[
+        str | None, Query(description="From `next_cursor` of the previous page")
+    ] = None,
 ) -> Page[ProductOut]:
     position = decode_cursor(cursor)
     after = str(position.get("after")) if position else None

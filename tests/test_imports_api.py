@@ -1,0 +1,189 @@
+"""CSV imports: accepted encodings, counts, product creation, and refusals that write nothing."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import pytest
+from fastapi.testclient import TestClient
+
+from service.app import create_app
+from tests.conftest import Database, row_count
+
+pytestmark = pytest.mark.storage
+
+HEADER = "sku,period,price,units,unit_cost,in_stock,rival_price,promo"
+ROWS = [
+    "TEA-001,2024-01-01,6.49,120,2.80,true,1.02,0",
+    "TEA-001,2024-01-08,5.99,150,2.80,yes,1.01,1",
+    "TEA-002,2024-01-01,12.00,40,,,0.99,",
+]
+
+
+def _csv(*lines: str, newline: str = "\n") -> str:
+    return newline.join(lines) + newline
+
+
+def _post(
+    client: TestClient,
+    headers: dict[str, str],
+    body: str | bytes,
+    create: bool = True,
+    content_type: str = "text/csv",
+) -> object:
+    return client.post(
+        "/v1/imports",
+        params={"create_products": str(create).lower()},
+        content=body,
+        headers={**headers, "content-type": content_type},
+    )
+
+
+def test_import_creates_products_and_is_idempotent(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    first = _post(client, headers, _csv(HEADER, *ROWS))
+    assert first.status_code == 200, first.json()
+    assert first.json() == {
+        "rows": 3,
+        "inserted": 3,
+        "updated": 0,
+        "products_created": ["TEA-001", "TEA-002"],
+    }
+    again = _post(client, headers, _csv(HEADER, *ROWS))
+    assert again.json() == {"rows": 3, "inserted": 0, "updated": 3, "products_created": []}
+    assert row_count(db.settings, "observations") == 3
+    assert row_count(db.settings, "products") == 2
+    history = client.get("/v1/products/TEA-002/observations", headers=headers).json()["items"]
+    assert history == [
+        {
+            "period": "2024-01-01",
+            "price": 12.0,
+            "units": 40.0,
+            "unit_cost": None,
+            "in_stock": None,
+            "covariates": {"rival_price": 0.99},
+        }
+    ]
+    first_tin = client.get("/v1/products/TEA-001/observations", headers=headers).json()["items"]
+    assert first_tin[1]["covariates"] == {"promo": 1.0, "rival_price": 1.01}
+    assert first_tin[1]["in_stock"] is True
+
+
+def test_bom_and_crlf_are_accepted(client: TestClient, headers: dict[str, str]) -> None:
+    body = "\ufeff".encode() + _csv(HEADER, *ROWS, newline="\r\n").encode()
+    response = _post(client, headers, body, content_type="text/csv; charset=utf-8")
+    assert response.status_code == 200, response.json()
+    assert response.json()["rows"] == 3
+    covariates = client.get("/v1/products/TEA-001/observations", headers=headers).json()["items"][
+        0
+    ]["covariates"]
+    assert set(covariates) == {"rival_price", "promo"}  # no BOM glued to a name, no "\r"
+
+
+def test_chunks_commit_together(client: TestClient, headers: dict[str, str], db: Database) -> None:
+    # With 2-row chunks the bad row arrives after earlier chunks were written.
+    app = create_app(db.settings.model_copy(update={"import_chunk_rows": 2}))
+    rows = [f"TEA-100,2023-{m:02d}-01,5.00,10,,,," for m in range(1, 13)]
+    rows[9] = "TEA-100,2023-10-01,-5.00,10,,,,"
+    with TestClient(app) as small_chunks:
+        response = _post(small_chunks, headers, _csv(HEADER, *rows))
+    assert response.status_code == 422
+    assert response.json()["errors"] == [
+        {"line": 11, "column": "price", "message": "price must be a finite number above zero"}
+    ]
+    assert row_count(db.settings, "observations") == 0
+    assert row_count(db.settings, "products") == 0
+
+
+BAD_FILES = [
+    ("unknown sku", _csv(HEADER, *ROWS), False, 2, "sku"),
+    ("bad date", _csv(HEADER, ROWS[0], "TEA-001,2024-13-01,6.49,120,,,,"), True, 3, "period"),
+    ("negative price", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,-1,120,,,,"), True, 3, "price"),
+    ("price nan", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,nan,120,,,,"), True, 3, "price"),
+    ("price inf", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,inf,120,,,,"), True, 3, "price"),
+    ("negative units", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,6,-3,,,,"), True, 3, "units"),
+    (
+        "text covariate",
+        _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,6,3,,,high,"),
+        True,
+        3,
+        "rival_price",
+    ),
+    ("bad flag", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,6,3,,maybe,,"), True, 3, "in_stock"),
+    ("duplicate period", _csv(HEADER, *ROWS, ROWS[0]), True, 5, "period"),
+    ("short row", _csv(HEADER, ROWS[0], "TEA-001,2024-01-08,6"), True, 3, None),
+    ("missing column", _csv("sku,period,price", "TEA-001,2024-01-01,6"), True, 1, "units"),
+    (
+        "repeated column",
+        _csv("sku,period,price,units,units", "TEA-001,2024-01-01,6,1,1"),
+        True,
+        1,
+        "units",
+    ),
+    ("empty file", "", True, 1, None),
+    ("header only", _csv(HEADER), True, 2, None),
+    ("not utf-8", HEADER + "\nTEA-001,2024-01-01,6,1,,,\xff,\n", True, None, None),
+]
+
+
+@pytest.mark.parametrize(
+    ("case", "body", "create", "line", "column"), BAD_FILES, ids=[c[0] for c in BAD_FILES]
+)
+def test_bad_files_write_nothing(
+    client: TestClient,
+    headers: dict[str, str],
+    db: Database,
+    case: str,
+    body: str,
+    create: bool,
+    line: int | None,
+    column: str | None,
+) -> None:
+    raw = body.encode("latin-1") if case == "not utf-8" else body.encode()
+    response = _post(client, headers, raw, create=create)
+    assert response.status_code == 422, (case, response.json())
+    assert response.headers["content-type"] == "application/problem+json"
+    problem = response.json()
+    first = problem["errors"][0]
+    if line is not None:
+        assert first["line"] == line, problem
+    if column is not None:
+        assert first["column"] == column, problem
+    assert first["message"]
+    assert row_count(db.settings, "observations") == 0
+    assert row_count(db.settings, "products") == 0
+
+
+def test_wrong_content_type_is_415(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    response = _post(client, headers, _csv(HEADER, *ROWS), content_type="application/json")
+    assert response.status_code == 415
+    assert response.headers["content-type"] == "application/problem+json"
+    assert row_count(db.settings, "observations") == 0
+
+
+@pytest.fixture
+def tiny_limit_client(db: Database) -> Iterator[TestClient]:
+    app = create_app(db.settings.model_copy(update={"import_limit_bytes": 64}))
+    with TestClient(app) as client:
+        yield client
+
+
+def test_import_over_limit_is_413(
+    tiny_limit_client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    body = _csv(HEADER, *ROWS)
+    declared = _post(tiny_limit_client, headers, body)
+    assert declared.status_code == 413
+    assert declared.headers["content-type"] == "application/problem+json"
+
+    def chunks() -> Iterator[bytes]:  # no Content-Length: counted while streaming
+        yield body.encode()
+
+    streamed = tiny_limit_client.post(
+        "/v1/imports", content=chunks(), headers={**headers, "content-type": "text/csv"}
+    )
+    assert streamed.status_code == 413
+    assert row_count(db.settings, "observations") == 0
