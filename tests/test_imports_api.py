@@ -187,3 +187,21 @@ def test_import_over_limit_is_413(
     )
     assert streamed.status_code == 413
     assert row_count(db.settings, "observations") == 0
+
+
+def test_line_numbers_count_blank_lines_and_quoted_breaks(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    body = _csv(
+        HEADER,
+        ROWS[0],
+        "",
+        'TEA-001,2024-01-08,5.99,150,2.80,yes,"1.01\nwith a break",1',
+        "",
+        "TEA-001,2024-01-15,5.99,-4,2.80,yes,1.01,1",
+    )
+    response = _post(client, headers, body)
+    assert response.status_code == 422
+    found = [(e["line"], e["column"]) for e in response.json()["errors"]]
+    assert found == [(5, "rival_price"), (7, "units")]
+    assert row_count(db.settings, "observations") == 0
