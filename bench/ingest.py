@@ -122,10 +122,15 @@ def raw_load(settings: Settings, rows: list[tuple[object, ...]]) -> float:
         import psycopg
 
         url = POSTGRES_URL.replace("postgresql+psycopg://", "postgresql://")
-        with psycopg.connect(url, options=f"-csearch_path={settings.database_schema}") as conn:
-            with conn.cursor() as cur, cur.copy(f"COPY observations ({columns}) FROM STDIN") as cp:
-                for row in rows:
-                    cp.write_row(row)
+        options = f"-csearch_path={settings.database_schema}"
+        copy_sql = f"COPY observations ({columns}) FROM STDIN"
+        with (
+            psycopg.connect(url, options=options) as conn,
+            conn.cursor() as cur,
+            cur.copy(copy_sql) as cp,
+        ):
+            for row in rows:
+                cp.write_row(row)
     return time.perf_counter() - started
 
 
@@ -192,7 +197,8 @@ def main() -> None:
             finally:
                 drop(base)
                 drop(ours)
-    print(f"bench process peak RSS {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB")
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    print(f"bench process peak RSS {peak:.0f} MB")
 
 
 if __name__ == "__main__":

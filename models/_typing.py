@@ -10,3 +10,4 @@ import numpy.typing as npt
 FloatArray: TypeAlias = npt.NDArray[np.float64]
 BoolArray: TypeAlias = npt.NDArray[np.bool_]
 DateArray: TypeAlias = npt.NDArray[np.datetime64]
+IntArray: TypeAlias = npt.NDArray[np.intp]

@@ -89,7 +89,9 @@ class History:
             unit_cost=(
                 np.full(n, np.nan) if unit_cost is None else np.asarray(unit_cost, dtype=np.float64)
             ),
-            in_stock=np.ones(n, dtype=bool) if in_stock is None else np.asarray(in_stock, dtype=bool),
+            in_stock=(
+                np.ones(n, dtype=bool) if in_stock is None else np.asarray(in_stock, dtype=bool)
+            ),
             covariates={k: np.asarray(v, dtype=np.float64) for k, v in (covariates or {}).items()},
             cross_prices={
                 k: np.asarray(v, dtype=np.float64) for k, v in (cross_prices or {}).items()

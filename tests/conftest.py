@@ -141,3 +141,21 @@ def row_count(settings: Settings, table: str) -> int:
         count = int(conn.execute(sa.text(f"SELECT count(*) FROM {table}")).scalar_one())
     engine.dispose()
     return count
+
+
+def pytest_terminal_summary(terminalreporter: pytest.TerminalReporter) -> None:
+    """Say how many storage tests ran on each database, so a skipped backend is visible."""
+    import re
+
+    counts: dict[str, dict[str, int]] = {b: {} for b in ("sqlite", "postgresql")}
+    for outcome in ("passed", "failed", "skipped", "error"):
+        for report in terminalreporter.stats.get(outcome, []):
+            if getattr(report, "when", "call") != "call" and outcome != "skipped":
+                continue
+            for backend in counts:
+                if re.search(rf"[\[-]{backend}[\]-]", getattr(report, "nodeid", "")):
+                    counts[backend][outcome] = counts[backend].get(outcome, 0) + 1
+    terminalreporter.section("storage backends")
+    for backend, by_outcome in counts.items():
+        summary = ", ".join(f"{n} {o}" for o, n in sorted(by_outcome.items())) or "none ran"
+        terminalreporter.write_line(f"storage tests on {backend}: {summary}")

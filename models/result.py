@@ -1,0 +1,292 @@
+"""The fit record: a frozen, JSON-round-trippable description of one fitted demand model."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field, fields
+from typing import Any
+
+import numpy as np
+
+from models._typing import FloatArray
+from models.design import Term
+from models.spec import ModelSpec
+
+
+def clean(value: Any) -> Any:
+    """JSON-safe copy: NaN and infinities become None, tuples become lists, numpy scalars floats."""
+    if isinstance(value, Mapping):
+        return {str(k): clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    return value
+
+
+def _num(value: Any) -> float:
+    """Float from a stored value; None (a stored NaN) comes back as NaN."""
+    return math.nan if value is None else float(value)
+
+
+def _opt_num(value: Any) -> float | None:
+    return None if value is None else float(value)
+
+
+@dataclass(frozen=True)
+class FitWarning:
+    """A machine-readable warning code with a sentence for people."""
+
+    code: str
+    message: str
+
+
+@dataclass(frozen=True)
+class Coefficient:
+    """One row of the coefficient table (``vif`` is None for the intercept)."""
+
+    term: str
+    estimate: float
+    std_error: float
+    t_stat: float
+    p_value: float
+    ci_low: float
+    ci_high: float
+    vif: float | None
+
+
+@dataclass(frozen=True)
+class Quality:
+    """Goodness of fit. For ``poisson``, ``r_squared`` is the deviance R-squared and
+    ``sigma`` the square root of the Pearson dispersion; for 2SLS ``aic``/``bic`` are None."""
+
+    n_obs: int
+    r_squared: float | None
+    adj_r_squared: float | None
+    f_stat: float | None
+    f_p_value: float | None
+    sigma: float
+    aic: float | None
+    bic: float | None
+    holdout_wape: float | None
+
+
+@dataclass(frozen=True)
+class Diagnostics:
+    """Residual and design diagnostics; IV figures are None without instruments."""
+
+    condition_number: float | None
+    durbin_watson: float | None
+    breusch_pagan_p: float | None
+    jarque_bera_p: float | None
+    first_stage_f: float | None = None
+    endogeneity_p: float | None = None
+
+
+@dataclass(frozen=True)
+class DataWindow:
+    """Which periods the fit used and what was left out."""
+
+    first_period: str
+    last_period: str
+    n_obs: int
+    n_window: int
+    n_stockouts_excluded: int
+    n_zero_units_dropped: int
+    n_missing_dropped: int
+    holdout_periods: int
+
+
+@dataclass(frozen=True)
+class PooledElasticity:
+    """Empirical-Bayes shrinkage of the own-price elasticity toward the family mean."""
+
+    family: str
+    raw: float
+    raw_std_error: float
+    pooled: float
+    pooled_std_error: float
+    family_mean: float
+    between_variance: float
+    weight_on_family: float
+    n_products: int
+
+
+@dataclass(frozen=True)
+class DemandFit:
+    """A fitted demand model for one product.
+
+    Attributes
+    ----------
+    sku, spec, form
+        Product, requested spec, and the fitted form (the chosen one under ``auto``).
+    terms : tuple of Term
+        Design columns in coefficient order.
+    coefficients : tuple of Coefficient
+        The coefficient table.
+    covariance : tuple of tuple of float
+        Covariance matrix of the estimates (term order).
+    quality, diagnostics, warnings, equation
+        The fit record.
+    df_resid : int
+        Residual degrees of freedom.
+    use_t : bool
+        Intervals use Student's t with ``df_resid`` (False: normal, for Poisson).
+    variable_means, variable_latest : dict
+        Price, cross prices and covariates: means over the fitted periods and the
+        latest fitted period's values (points for elasticities and predictions).
+    regressor_means, regressor_latest : dict
+        Means and latest values of every non-intercept design column, by term name.
+    price_range : tuple of float
+        Lowest and highest own price in the fitted periods.
+    candidate_scores : dict
+        Rolling-origin WAPE of each candidate form under ``auto`` (None: could not be scored).
+    window : DataWindow
+        Data window.
+    smearing : float or None
+        Duan's smearing factor ``mean(exp(residual))`` for the log forms.
+    pooled : PooledElasticity or None
+        Family-pooled own-price elasticity when ``pooling="family"``.
+    """
+
+    sku: str
+    spec: ModelSpec
+    form: str
+    terms: tuple[Term, ...]
+    coefficients: tuple[Coefficient, ...]
+    covariance: tuple[tuple[float, ...], ...]
+    quality: Quality
+    diagnostics: Diagnostics
+    warnings: tuple[FitWarning, ...]
+    equation: str
+    df_resid: int
+    use_t: bool
+    variable_means: dict[str, float]
+    variable_latest: dict[str, float]
+    regressor_means: dict[str, float]
+    regressor_latest: dict[str, float]
+    price_range: tuple[float, float]
+    window: DataWindow
+    smearing: float | None = None
+    candidate_scores: dict[str, float | None] = field(default_factory=dict)
+    pooled: PooledElasticity | None = None
+
+    @property
+    def term_names(self) -> tuple[str, ...]:
+        return tuple(t.name for t in self.terms)
+
+    @property
+    def params(self) -> FloatArray:
+        return np.array([c.estimate for c in self.coefficients])
+
+    @property
+    def cov(self) -> FloatArray:
+        return np.array(self.covariance, dtype=np.float64)
+
+    def coefficient(self, term: str) -> Coefficient:
+        """The coefficient row of a term, by name."""
+        for row in self.coefficients:
+            if row.term == term:
+                return row
+        raise KeyError(term)
+
+    @property
+    def own_price(self) -> Coefficient:
+        """The own-price coefficient row."""
+        return self.coefficients[[t.kind for t in self.terms].index("own_price")]
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-safe mapping (no NaN or infinity) that :meth:`from_dict` restores."""
+        out: dict[str, Any] = {}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if f.name == "spec":
+                out["spec"] = value.to_dict()
+            elif f.name == "terms":
+                out["terms"] = [t.to_dict() for t in value]
+            elif f.name in ("coefficients", "warnings"):
+                out[f.name] = [clean(vars(row)) for row in value]
+            elif f.name in ("quality", "diagnostics", "window", "pooled"):
+                out[f.name] = None if value is None else clean(vars(value))
+            else:
+                out[f.name] = clean(value)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> DemandFit:
+        """Rebuild a fit stored with :meth:`to_dict`."""
+        coefficients = tuple(
+            Coefficient(
+                term=str(row["term"]),
+                estimate=_num(row["estimate"]),
+                std_error=_num(row["std_error"]),
+                t_stat=_num(row["t_stat"]),
+                p_value=_num(row["p_value"]),
+                ci_low=_num(row["ci_low"]),
+                ci_high=_num(row["ci_high"]),
+                vif=_opt_num(row["vif"]),
+            )
+            for row in data["coefficients"]
+        )
+        quality = dict(data["quality"])
+        pooled = data.get("pooled")
+        return cls(
+            sku=str(data["sku"]),
+            spec=ModelSpec.from_dict(data["spec"]),
+            form=str(data["form"]),
+            terms=tuple(Term.from_dict(t) for t in data["terms"]),
+            coefficients=coefficients,
+            covariance=tuple(tuple(_num(v) for v in row) for row in data["covariance"]),
+            quality=Quality(
+                n_obs=int(quality.pop("n_obs")),
+                sigma=_num(quality.pop("sigma")),
+                **{k: _opt_num(v) for k, v in quality.items()},
+            ),
+            diagnostics=Diagnostics(**{k: _opt_num(v) for k, v in data["diagnostics"].items()}),
+            warnings=tuple(FitWarning(str(w["code"]), str(w["message"])) for w in data["warnings"]),
+            equation=str(data["equation"]),
+            df_resid=int(data["df_resid"]),
+            use_t=bool(data["use_t"]),
+            variable_means={str(k): _num(v) for k, v in data["variable_means"].items()},
+            variable_latest={str(k): _num(v) for k, v in data["variable_latest"].items()},
+            regressor_means={str(k): _num(v) for k, v in data["regressor_means"].items()},
+            regressor_latest={str(k): _num(v) for k, v in data["regressor_latest"].items()},
+            price_range=(float(data["price_range"][0]), float(data["price_range"][1])),
+            window=DataWindow(**data["window"]),
+            smearing=_opt_num(data.get("smearing")),
+            candidate_scores={
+                str(k): _opt_num(v) for k, v in (data.get("candidate_scores") or {}).items()
+            },
+            pooled=None if pooled is None else PooledElasticity(**pooled),
+        )
+
+
+@dataclass(frozen=True)
+class FitFailure:
+    """A product of a batch that could not be fitted.
+
+    Attributes
+    ----------
+    sku : str
+    reason : str
+        A sentence for people.
+    error : str
+        The error class name (``InsufficientDataError``, ``UnusableDataError``, ...).
+    n_obs, n_required : int or None
+        Filled for insufficient data.
+    """
+
+    sku: str
+    reason: str
+    error: str
+    n_obs: int | None = None
+    n_required: int | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(clean(vars(self)))
