@@ -143,14 +143,19 @@ from service.db import make_engine, make_session_factory, session_scope
 from service.ingest import import_csv
 settings = Settings.model_validate_json(sys.argv[2])
 engine = make_engine(settings)
-before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+def high_water_mb():
+    # VmHWM belongs to this process image; ru_maxrss would include the parent's before exec.
+    for line in open("/proc/self/status"):
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024
+    return float("nan")
+before = high_water_mb()
 started = time.perf_counter()
 with open(sys.argv[3], "rb") as raw, session_scope(make_session_factory(engine, writer=True)) as s:
     outcome = import_csv(s, raw, create_products=False, chunk_rows=settings.import_chunk_rows)
 elapsed = time.perf_counter() - started
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
 print(json.dumps({"seconds": elapsed, "rows": outcome.rows, "inserted": outcome.inserted,
-                  "rss_before_mb": before / 1024, "rss_peak_mb": peak / 1024}))
+                  "rss_before_mb": before, "rss_peak_mb": high_water_mb()}))
 """
 
 

@@ -11,7 +11,7 @@ from fastapi import FastAPI, Request, Response
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import DBAPIError, OperationalError
 
-from service.api import health, imports, keys, observations, products
+from service.api import fits, health, imports, keys, observations, products
 from service.db import make_engine, make_session_factory
 from service.errors import install_error_handlers, problem_response
 from service.limits import BodySizeLimit
@@ -69,6 +69,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         products.router,
         observations.router,
         imports.router,
+        fits.router,
         keys.router,
     ):
         app.include_router(router)

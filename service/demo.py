@@ -30,7 +30,23 @@ def product_fields(product: ScenarioProduct) -> dict[str, object]:
         "current_price": round(product.current_price, 2),
         "min_price": round(product.min_price, 2),
         "max_price": round(product.max_price, 2),
-        "default_spec": None,
+        "default_spec": demo_spec(product),
+    }
+
+
+def demo_spec_cross(sku: str, seed: int = 7) -> list[str]:
+    """The siblings whose prices enter a demo tin's default spec."""
+    return sorted(generate_catalogue(seed).product(sku).truth.cross_price_coefs)
+
+
+def demo_spec(product: ScenarioProduct) -> dict[str, object]:
+    """What an analyst of the shop would start from: every recorded driver, the siblings
+    believed to compete with the tin, and form chosen by out-of-sample error."""
+    return {
+        "form": "auto",
+        "covariates": ["rival_price", "promo", "ad_spend", "holiday"],
+        "log_covariates": ["rival_price", "ad_spend"],
+        "cross_prices": sorted(product.truth.cross_price_coefs),
     }
 
 
@@ -39,15 +55,22 @@ def observation_rows(product_id: int, product: ScenarioProduct) -> list[Observat
     rows: list[ObservationTuple] = []
     for i in range(h.n_periods):
         covariates = {
-            name: float(values[i]) for name, values in h.covariates.items()
+            name: float(values[i])
+            for name, values in h.covariates.items()
             if math.isfinite(values[i])
         }
         cost = float(h.unit_cost[i])
-        rows.append((
-            product_id, str(h.periods[i]), float(h.price[i]), float(h.units[i]),
-            cost if math.isfinite(cost) else None, bool(h.in_stock[i]),
-            covariates_json(covariates),
-        ))
+        rows.append(
+            (
+                product_id,
+                str(h.periods[i]),
+                float(h.price[i]),
+                float(h.units[i]),
+                cost if math.isfinite(cost) else None,
+                bool(h.in_stock[i]),
+                covariates_json(covariates),
+            )
+        )
     return rows
 
 
@@ -64,7 +87,9 @@ def load_catalogue(settings: Settings, catalogue: Catalogue) -> DemoSummary:
     finally:
         engine.dispose()
     return DemoSummary(
-        products=len(catalogue.products), observations=writer.rows, inserted=inserted,
+        products=len(catalogue.products),
+        observations=writer.rows,
+        inserted=inserted,
         updated=updated,
     )
 

@@ -2,8 +2,8 @@
 
 from __future__ import annotations
 
-from service.schemas import ApiKeyOut, ObservationOut, ProductOut
-from service.tables import ApiKeyRow, ObservationRow, ProductRow
+from service.schemas import ApiKeyOut, FitOut, FitSummary, ObservationOut, ProductOut
+from service.tables import ApiKeyRow, FitRow, ObservationRow, ProductRow
 
 
 def product_out(row: ProductRow) -> ProductOut:
@@ -41,4 +41,45 @@ def api_key_out(row: ApiKeyRow) -> ApiKeyOut:
         created_at=row.created_at,
         last_used_at=row.last_used_at,
         revoked_at=row.revoked_at,
+    )
+
+
+def fit_summary(row: FitRow, sku: str) -> FitSummary:
+    result = row.result
+    own = next(
+        (
+            c
+            for c, t in zip(result["coefficients"], result["terms"], strict=True)
+            if t["kind"] == "own_price"
+        ),
+        None,
+    )
+    return FitSummary(
+        id=row.id,
+        sku=sku,
+        version=row.version,
+        status=row.status,
+        form=row.form,
+        n_obs=row.n_obs,
+        own_price_estimate=own["estimate"] if own else None,
+        holdout_wape=result["quality"].get("holdout_wape"),
+        created_at=row.created_at,
+    )
+
+
+def fit_out(row: FitRow, sku: str) -> FitOut:
+    result = row.result
+    return FitOut(
+        **fit_summary(row, sku).model_dump(),
+        spec=row.spec,
+        equation=result["equation"],
+        coefficients=result["coefficients"],
+        quality=result["quality"],
+        diagnostics=result["diagnostics"],
+        warnings=result["warnings"],
+        gates=row.gates or {"passed": False, "checks": []},
+        window=result["window"],
+        price_range=list(result["price_range"]),
+        candidate_scores=result.get("candidate_scores") or {},
+        pooled=result.get("pooled"),
     )

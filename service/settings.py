@@ -37,6 +37,15 @@ class Settings(BaseSettings):
         default=20_000, description="Rows written per batch during a CSV import"
     )
 
+    gate_min_observations: int = Field(
+        default=30, description="Quality gate: fewest observations an active fit may rest on"
+    )
+    gate_holdout_margin: float = Field(
+        default=0.10,
+        description="Quality gate: a new fit's hold-out WAPE may exceed the active fit's by "
+        "at most this fraction",
+    )
+
     @property
     def is_sqlite(self) -> bool:
         return self.database_url.startswith("sqlite")

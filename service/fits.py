@@ -1,0 +1,198 @@
+"""Fit records: fitting a product now, the quality gates, versions and activation."""
+
+from __future__ import annotations
+
+import datetime as dt
+from dataclasses import dataclass
+from typing import Any
+
+from sqlalchemy import func, select, update
+from sqlalchemy.orm import Session
+
+from models import (
+    DemandFit,
+    InsufficientDataError,
+    ModelSpec,
+    SpecError,
+    UnusableDataError,
+    fit_demand,
+)
+from service import histories, products
+from service.errors import ErrorItem, InvalidInput, NotFound
+from service.settings import Settings
+from service.tables import FitRow, ProductRow, utcnow
+
+ACTIVE, SUPERSEDED, REJECTED = "active", "superseded", "rejected"
+
+
+@dataclass(frozen=True)
+class GateResult:
+    name: str
+    passed: bool
+    detail: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "passed": self.passed, "detail": self.detail}
+
+
+def parse_spec(raw: dict[str, Any] | None, *, field_prefix: str = "spec") -> ModelSpec:
+    try:
+        return ModelSpec.from_dict(raw or {})
+    except SpecError as exc:
+        raise InvalidInput(
+            "the model specification is invalid",
+            errors=[
+                ErrorItem(
+                    field=f"{field_prefix}.{name}" if name != "spec" else field_prefix,
+                    message=message,
+                )
+                for name, message in exc.problems
+            ],
+        ) from None
+
+
+def quality_gates(fit: DemandFit, active: DemandFit | None, settings: Settings) -> list[GateResult]:
+    """The checks a fit must pass to become the product's active fit."""
+    own = fit.own_price
+    gates = [
+        GateResult(
+            "expected_sign",
+            own.estimate < 0,
+            f"own-price coefficient {own.estimate:.4g} "
+            + (
+                "is negative, as demand should fall when price rises"
+                if own.estimate < 0
+                else "is not negative: demand would not fall when price rises"
+            ),
+        ),
+        GateResult(
+            "price_variation",
+            not any(w.code == "low_price_variation" for w in fit.warnings),
+            "the own price varied enough to identify its effect"
+            if not any(w.code == "low_price_variation" for w in fit.warnings)
+            else "the own price barely varied, so its effect cannot be told apart from noise",
+        ),
+        GateResult(
+            "enough_observations",
+            fit.quality.n_obs >= settings.gate_min_observations,
+            f"{fit.quality.n_obs} observations (at least {settings.gate_min_observations} needed)",
+        ),
+    ]
+    new_wape, old_wape = fit.quality.holdout_wape, active.quality.holdout_wape if active else None
+    if new_wape is None or old_wape is None:
+        gates.append(
+            GateResult(
+                "holdout_not_worse", True, "no hold-out comparison with an active fit was possible"
+            )
+        )
+    else:
+        limit = old_wape * (1 + settings.gate_holdout_margin)
+        gates.append(
+            GateResult(
+                "holdout_not_worse",
+                new_wape <= limit,
+                f"hold-out WAPE {new_wape:.4f} against the active fit's {old_wape:.4f} "
+                f"(limit {limit:.4f})",
+            )
+        )
+    return gates
+
+
+def active_row(session: Session, *, product_id: int) -> FitRow | None:
+    return session.scalar(
+        select(FitRow).where(FitRow.product_id == product_id, FitRow.status == ACTIVE)
+    )
+
+
+def active_or_raise(session: Session, *, product: ProductRow) -> FitRow:
+    row = active_row(session, product_id=product.id)
+    if row is None:
+        raise NotFound(
+            f"product {product.sku!r} has no active fit; fit one with POST "
+            f"/v1/products/{product.sku}/fits"
+        )
+    return row
+
+
+def get_or_raise(session: Session, *, product: ProductRow, fit_id: int) -> FitRow:
+    row = session.get(FitRow, fit_id)
+    if row is None or row.product_id != product.id:
+        raise NotFound(f"product {product.sku!r} has no fit {fit_id}")
+    return row
+
+
+def list_page(
+    session: Session, *, product_id: int, limit: int, before_version: int | None
+) -> tuple[list[FitRow], bool]:
+    """Newest first."""
+    query = (
+        select(FitRow)
+        .where(FitRow.product_id == product_id)
+        .order_by(FitRow.version.desc())
+        .limit(limit + 1)
+    )
+    if before_version is not None:
+        query = query.where(FitRow.version < before_version)
+    rows = list(session.scalars(query))
+    return rows[:limit], len(rows) > limit
+
+
+def restore(row: FitRow) -> DemandFit:
+    return DemandFit.from_dict(row.result)
+
+
+def record_fit(
+    session: Session, *, product: ProductRow, fit: DemandFit, settings: Settings
+) -> FitRow:
+    """Store a new version; activate it if it passes the gates (atomically), else reject it."""
+    previous = active_row(session, product_id=product.id)
+    gates = quality_gates(fit, restore(previous) if previous else None, settings)
+    passed = all(g.passed for g in gates)
+    version = (
+        session.scalar(select(func.max(FitRow.version)).where(FitRow.product_id == product.id)) or 0
+    ) + 1
+    if passed and previous is not None:
+        session.execute(update(FitRow).where(FitRow.id == previous.id).values(status=SUPERSEDED))
+    row = FitRow(
+        product_id=product.id,
+        version=version,
+        status=ACTIVE if passed else REJECTED,
+        form=fit.form,
+        spec=fit.spec.to_dict(),
+        result=fit.to_dict(),
+        gates={"passed": passed, "checks": [g.to_dict() for g in gates]},
+        n_obs=fit.quality.n_obs,
+        window_start=_date(fit.window.first_period),
+        window_end=_date(fit.window.last_period),
+        created_at=utcnow(),
+    )
+    session.add(row)
+    session.flush()
+    return row
+
+
+def _date(text: str | None) -> dt.date | None:
+    return dt.date.fromisoformat(text) if text else None
+
+
+def fit_now(
+    session: Session, *, sku: str, spec: dict[str, Any] | None, settings: Settings
+) -> FitRow:
+    """Fit one product with the given spec (or its default) and record the result."""
+    product = products.get_or_raise(session, sku=sku)
+    model_spec = parse_spec(spec if spec is not None else product.default_spec)
+    history = histories.load_history(session, product=product, cross_skus=model_spec.cross_prices)
+    try:
+        fit = fit_demand(history, model_spec)
+    except InsufficientDataError as exc:
+        raise InvalidInput(
+            f"not enough data to fit {sku!r}: {exc.n_obs} usable observations, the model "
+            f"needs at least {exc.n_required} ({exc.n_missing} more)",
+            errors=[ErrorItem(field="observations", message=str(exc))],
+        ) from None
+    except UnusableDataError as exc:
+        raise InvalidInput(
+            f"the data of {sku!r} cannot support this model: {exc}",
+            errors=[ErrorItem(field="spec", message=str(exc))],
+        ) from None
+    return record_fit(session, product=product, fit=fit, settings=settings)
