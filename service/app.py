@@ -9,7 +9,7 @@ from contextlib import asynccontextmanager
 
 from fastapi import FastAPI, Request, Response
 from fastapi.responses import JSONResponse
-from sqlalchemy.exc import DBAPIError, OperationalError
+from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
 
 from service.api import fits, health, imports, keys, observations, products
 from service.db import make_engine, make_session_factory
@@ -107,6 +107,16 @@ def _install_database_outage_handler(app: FastAPI) -> None:
             instance=request.url.path,
         )
 
+    async def conflict(request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(
+            status=409,
+            slug="conflict",
+            title="Conflict with the current state",
+            detail="a concurrent request changed the same records; retry the request",
+            instance=request.url.path,
+        )
+
+    app.add_exception_handler(IntegrityError, conflict)
     app.add_exception_handler(OperationalError, outage)
     app.add_exception_handler(DBAPIError, outage)
 

@@ -12,10 +12,12 @@ from sqlalchemy import (
     DateTime,
     Float,
     ForeignKey,
+    Index,
     Integer,
     MetaData,
     String,
     UniqueConstraint,
+    text,
 )
 from sqlalchemy.dialects.postgresql import JSONB
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
@@ -88,7 +90,17 @@ class ApiKeyRow(Base):
 
 class FitRow(Base):
     __tablename__ = "fits"
-    __table_args__ = (UniqueConstraint("product_id", "version"),)
+    __table_args__ = (
+        UniqueConstraint("product_id", "version"),
+        # At most one active fit per product, whatever runs concurrently.
+        Index(
+            "uq_fits_one_active",
+            "product_id",
+            unique=True,
+            sqlite_where=text("status = 'active'"),
+            postgresql_where=text("status = 'active'"),
+        ),
+    )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     product_id: Mapped[int] = mapped_column(

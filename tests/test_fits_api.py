@@ -235,3 +235,18 @@ def test_no_active_fit_is_404_everywhere(shop: TestClient, headers: dict[str, st
         response = shop.request(method, path, json=body, headers=headers)
         assert response.status_code == 404, path
         assert response.headers["content-type"] == "application/problem+json"
+
+
+def test_the_database_allows_one_active_fit_per_product(
+    shop: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    import sqlalchemy as sa
+
+    from service.db import make_engine
+
+    shop.post("/v1/products/TEA-021/fits", json={"spec": NAIVE}, headers=headers)
+    shop.post("/v1/products/TEA-021/fits", json={"spec": NAIVE}, headers=headers)
+    engine = make_engine(db.settings)
+    with pytest.raises(sa.exc.IntegrityError), engine.begin() as conn:
+        conn.execute(sa.text("UPDATE fits SET status = 'active' WHERE version = 1"))
+    engine.dispose()

@@ -37,7 +37,7 @@ AT_PATTERN = r"^(mean|latest|[A-Za-z0-9_.-]+:-?[0-9.eE+-]+(,[A-Za-z0-9_.-]+:-?[0
     dependencies=[WRITE],
     operation_id="create_fit",
     summary="Fit the product's demand model now",
-    responses=problems(404, 422),
+    responses=problems(404, 409, 422),
 )
 def create_fit(
     sku: SkuPath, session: WriteSession, settings: SettingsDep, body: FitRequest | None = None
