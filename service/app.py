@@ -55,6 +55,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.read_sessions = make_session_factory(engine, writer=False)
     app.state.write_sessions = make_session_factory(engine, writer=True)
+    app.state.bulk_sessions = make_session_factory(engine, writer=True, bulk_load=True)
 
     install_error_handlers(app)
     _install_database_outage_handler(app)

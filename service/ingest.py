@@ -202,7 +202,7 @@ def _stream_rows(
             n_rows += len(chunk.skus)
             for sku in dict.fromkeys(chunk.skus):
                 sku_codes.setdefault(sku, len(sku_codes))
-            codes = np.fromiter((sku_codes[s] for s in chunk.skus), np.int64, len(chunk.skus))
+            codes = np.array(list(map(sku_codes.__getitem__, chunk.skus)), dtype=np.int64)
             chunk_keys = (codes << 32) | chunk.ordinals
             keys.extend(chunk_keys)
             lines.extend(chunk.lines)
@@ -241,11 +241,8 @@ def _chunks(reader: CsvReader, size: int) -> Iterator[tuple[list[list[str]], lis
             return
         first = last_line + 1
         last_line = reader.line_num
-        if (
-            last_line - first + 1 == len(rows)
-            and all(rows[0:1])
-            and all(r and (len(r) > 1 or r[0].strip()) for r in rows)
-        ):
+        # Blank rows are [] and whitespace-only ones have one cell; real rows have 4 or more.
+        if last_line - first + 1 == len(rows) and min(map(len, rows)) > 1:
             yield rows, list(range(first, last_line + 1))
             continue
         yield _number_rows(rows, first)
@@ -388,7 +385,7 @@ def _fast_chunk(rows: list[list[str]], row_lines: list[int], layout: _Layout) ->
     return _Chunk(
         skus=list(skus),
         periods=list(periods),
-        ordinals=np.fromiter((ordinal_of[p] for p in periods), np.int64, n),
+        ordinals=np.array(list(map(ordinal_of.__getitem__, periods)), dtype=np.int64),
         price=price.tolist(),
         units=units.tolist(),
         unit_cost=unit_cost,
@@ -440,7 +437,8 @@ def _optional_column(cells: Sequence[str], *, minimum: float) -> list[float | No
     return out
 
 
-_JSON_NUMBERS = re.compile(r"(?:-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][+-]?[0-9]+)?\n)*")
+# JSON numbers with at most two exponent digits: always finite as doubles.
+_JSON_NUMBERS = re.compile(r"(?:-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][+-]?[0-9]{1,2})?\n)*")
 
 
 def _covariate_json(
@@ -449,22 +447,11 @@ def _covariate_json(
     if not layout.covariates:
         return [None] * n
     ordered = sorted(layout.covariates, key=lambda c: c[1])
-    values = []
-    for index, _name in ordered:
-        column = _optional_column(columns[index], minimum=-math.inf)
-        if column is None:
-            return None
-        values.append(column)
-    if all(None not in v for v in values):
-        # Every cell is a finite number. Cells already written as JSON numbers are copied
-        # as they are (one regex pass a column); repr() of the float serves the others.
-        texts = [
-            columns[index]
-            if _JSON_NUMBERS.fullmatch("\n".join(columns[index]) + "\n")
-            else [repr(v) for v in column]
-            for (index, _), column in zip(ordered, values, strict=True)
-        ]
-        heads = [("{" if i == 0 else ",") + f'"{name}":' for i, (_, name) in enumerate(ordered)]
+    heads = [("{" if i == 0 else ",") + f'"{name}":' for i, (_, name) in enumerate(ordered)]
+    # Columns whose cells are all JSON numbers (one regex pass a column) are copied as
+    # text: no conversion needed, and the value is exactly what the client sent.
+    texts = [columns[index] for index, _ in ordered]
+    if all(_JSON_NUMBERS.fullmatch("\n".join(column) + "\n") for column in texts):
         if len(ordered) == 1:
             return [heads[0] + a + "}" for a in texts[0]]
         if len(ordered) == 2:
@@ -473,6 +460,12 @@ def _covariate_json(
             "".join(h + t for h, t in zip(heads, row, strict=True)) + "}"
             for row in zip(*texts, strict=True)
         ]
+    values = []
+    for index, _name in ordered:
+        column = _optional_column(columns[index], minimum=-math.inf)
+        if column is None:
+            return None
+        values.append(column)
     names = [name for _, name in ordered]
     out: list[str | None] = []
     for row in zip(*values, strict=True):

@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 from collections.abc import Iterator
+from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
 
 from service.app import create_app
+from service.settings import Settings
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
@@ -204,4 +206,49 @@ def test_line_numbers_count_blank_lines_and_quoted_breaks(
     assert response.status_code == 422
     found = [(e["line"], e["column"]) for e in response.json()["errors"]]
     assert found == [(5, "rival_price"), (7, "units")]
+    assert row_count(db.settings, "observations") == 0
+
+
+def test_foreign_keys_hold_again_after_an_import(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    assert _post(client, headers, _csv(HEADER, *ROWS)).status_code == 200
+    # Deleting a product removes its history through ON DELETE CASCADE, which on SQLite
+    # works only while foreign keys are enforced on the connection doing it.
+    for _ in range(3):
+        assert client.delete("/v1/products/TEA-001", headers=headers).status_code in (204, 404)
+    assert row_count(db.settings, "observations") == 1
+
+
+def test_bulk_sessions_switch_foreign_keys_off_only_inside(tmp_path: Path) -> None:
+    import sqlalchemy as sa
+
+    from service.db import make_engine, make_session_factory, session_scope
+
+    engine = make_engine(Settings(database_url=f"sqlite:///{tmp_path / 'fk.db'}"))
+    with session_scope(make_session_factory(engine, writer=True, bulk_load=True)) as session:
+        assert session.execute(sa.text("PRAGMA foreign_keys")).scalar_one() == 0
+    with session_scope(make_session_factory(engine, writer=True)) as session:
+        assert session.execute(sa.text("PRAGMA foreign_keys")).scalar_one() == 1
+    engine.dispose()
+
+
+def test_covariate_text_is_stored_as_json_numbers(
+    client: TestClient, headers: dict[str, str]
+) -> None:
+    body = _csv("sku,period,price,units,ad_spend,promo",
+                "TEA-001,2024-01-01,5,1,1.5e3,01",
+                "TEA-001,2024-01-08,5,1,-0.25,1.")
+    assert _post(client, headers, body).status_code == 200
+    items = client.get("/v1/products/TEA-001/observations", headers=headers).json()["items"]
+    assert [i["covariates"] for i in items] == [{"ad_spend": 1500.0, "promo": 1.0},
+                                                {"ad_spend": -0.25, "promo": 1.0}]
+
+
+def test_overflowing_covariate_is_refused(client: TestClient, headers: dict[str, str],
+                                          db: Database) -> None:
+    body = _csv("sku,period,price,units,ad_spend", "TEA-001,2024-01-01,5,1,1e999")
+    response = _post(client, headers, body)
+    assert response.status_code == 422
+    assert response.json()["errors"][0]["column"] == "ad_spend"
     assert row_count(db.settings, "observations") == 0

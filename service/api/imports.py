@@ -61,7 +61,7 @@ async def import_observations(
         spool.seek(0)
 
         def run() -> ingest.UpsertOutcome:
-            with session_scope(request.app.state.write_sessions) as session:
+            with session_scope(request.app.state.bulk_sessions) as session:
                 return ingest.import_csv(
                     session,
                     spool,
