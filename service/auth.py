@@ -18,7 +18,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.errors import Forbidden, NotFound, Unauthenticated
-from service.tables import ApiKeyRow, utcnow
+from service.tables import ApiKeyRow, as_utc, utcnow
 
 Scope = Literal["read", "write", "admin"]
 SCOPES: tuple[Scope, ...] = ("read", "write", "admin")
@@ -101,7 +101,7 @@ def authenticate(session: Session, authorization: str | None) -> tuple[Principal
         raise Unauthenticated("the API key is unknown or revoked", headers=challenge)
     last = row.last_used_at
     # Coarse, so that reads do not write on every request.
-    stale = last is None or utcnow() - _aware(last) > dt.timedelta(minutes=1)
+    stale = last is None or utcnow() - as_utc(last) > dt.timedelta(minutes=1)
     return Principal(key_id=row.id, name=row.name, scopes=frozenset(row.scopes)), stale
 
 
@@ -109,10 +109,6 @@ def touch_key(session: Session, *, key_id: str) -> None:
     row = session.get(ApiKeyRow, key_id)
     if row is not None:
         row.last_used_at = utcnow()
-
-
-def _aware(value: dt.datetime) -> dt.datetime:
-    return value if value.tzinfo else value.replace(tzinfo=dt.UTC)
 
 
 def require(principal: Principal, scope: Scope) -> None:

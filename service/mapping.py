@@ -2,8 +2,14 @@
 
 from __future__ import annotations
 
+import datetime as dt
+
 from service.schemas import ApiKeyOut, FitOut, FitSummary, ObservationOut, ProductOut
-from service.tables import ApiKeyRow, FitRow, ObservationRow, ProductRow
+from service.tables import ApiKeyRow, FitRow, ObservationRow, ProductRow, as_utc
+
+
+def _utc_or_none(value: dt.datetime | None) -> dt.datetime | None:
+    return None if value is None else as_utc(value)
 
 
 def product_out(row: ProductRow) -> ProductOut:
@@ -17,8 +23,8 @@ def product_out(row: ProductRow) -> ProductOut:
         min_price=row.min_price,
         max_price=row.max_price,
         default_spec=row.default_spec,
-        created_at=row.created_at,
-        updated_at=row.updated_at,
+        created_at=as_utc(row.created_at),
+        updated_at=as_utc(row.updated_at),
     )
 
 
@@ -38,9 +44,9 @@ def api_key_out(row: ApiKeyRow) -> ApiKeyOut:
         id=row.id,
         name=row.name,
         scopes=list(row.scopes),
-        created_at=row.created_at,
-        last_used_at=row.last_used_at,
-        revoked_at=row.revoked_at,
+        created_at=as_utc(row.created_at),
+        last_used_at=_utc_or_none(row.last_used_at),
+        revoked_at=_utc_or_none(row.revoked_at),
     )
 
 
@@ -63,7 +69,7 @@ def fit_summary(row: FitRow, sku: str) -> FitSummary:
         n_obs=row.n_obs,
         own_price_estimate=own["estimate"] if own else None,
         holdout_wape=result["quality"].get("holdout_wape"),
-        created_at=row.created_at,
+        created_at=as_utc(row.created_at),
     )
 
 

@@ -118,3 +118,10 @@ def test_malformed_cursor_is_422(client: TestClient, headers: dict[str, str]) ->
     response = client.get("/v1/products", params={"cursor": "%%%"}, headers=headers)
     assert response.status_code == 422
     assert response.json()["errors"][0]["field"] == "cursor"
+
+
+def test_times_carry_utc(client: TestClient, headers: dict[str, str]) -> None:
+    body = client.put("/v1/products/TEA-005", json=TIN, headers=headers).json()
+    again = client.get("/v1/products/TEA-005", headers=headers).json()
+    for stamp in (body["created_at"], again["created_at"], again["updated_at"]):
+        assert stamp.endswith(("Z", "+00:00")), stamp
