@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from models.result import DemandFit, FitWarning
 
-EXTRAPOLATION: str = "price-outside-observed-range"
+EXTRAPOLATION: str = "price_outside_observed_range"
 
 
 def price_range_warning(fit: DemandFit, price: float) -> FitWarning | None:
@@ -19,7 +19,7 @@ def price_range_warning(fit: DemandFit, price: float) -> FitWarning | None:
     >>> product = generate_catalogue(7).product("TEA-004")
     >>> fit = fit_demand(product.history, ModelSpec(form="log-log"))
     >>> price_range_warning(fit, fit.price_range[1] * 2).code
-    'price-outside-observed-range'
+    'price_outside_observed_range'
     >>> price_range_warning(fit, sum(fit.price_range) / 2) is None
     True
     """

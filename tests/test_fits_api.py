@@ -155,7 +155,7 @@ def test_elasticities(shop: TestClient, headers: dict[str, str]) -> None:
         headers=headers,
     ).json()
     assert given["at"] == "given" and given["point"]["price"] == 99
-    assert given["warnings"][0]["code"] == "price-outside-observed-range"
+    assert given["warnings"][0]["code"] == "price_outside_observed_range"
     ad = next(e for e in given["elasticities"] if e["name"] == "ad_spend")
     assert ad["class"] in {"inferior", "necessity", "luxury"}
     unknown = shop.get(
@@ -214,7 +214,7 @@ def test_predict(shop: TestClient, headers: dict[str, str]) -> None:
     outside = shop.post(
         "/v1/products/TEA-021/predict", json={"price": high * 1.5}, headers=headers
     ).json()
-    assert [w["code"] for w in outside["warnings"]] == ["price-outside-observed-range"]
+    assert [w["code"] for w in outside["warnings"]] == ["price_outside_observed_range"]
     unknown = shop.post(
         "/v1/products/TEA-021/predict",
         json={"price": price, "covariates": {"weather": 1}},
