@@ -16,6 +16,8 @@ from models import (
     SpecError,
     UnusableDataError,
     fit_demand,
+    fit_many,
+    pool_family,
 )
 from service import histories, products
 from service.errors import ErrorItem, InvalidInput, NotFound
@@ -195,4 +197,37 @@ def fit_now(
             f"the data of {sku!r} cannot support this model: {exc}",
             errors=[ErrorItem(field="spec", message=str(exc))],
         ) from None
+    if model_spec.pooling == "family" and product.family:
+        fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
     return record_fit(session, product=product, fit=fit, settings=settings)
+
+
+def pool_with_family(
+    session: Session, *, product: ProductRow, fit: DemandFit, spec: ModelSpec
+) -> DemandFit:
+    """Shrink the fit's own-price elasticity toward its family's.
+
+    Siblings contribute their active fits; a sibling without one is fitted for the
+    occasion with the same spec minus cross-price terms (those fits are not stored).
+    """
+    siblings = list(
+        session.scalars(
+            select(ProductRow).where(
+                ProductRow.family == product.family, ProductRow.id != product.id
+            )
+        )
+    )
+    members: list[DemandFit] = [fit]
+    to_fit = []
+    for sibling in siblings:
+        active = active_row(session, product_id=sibling.id)
+        if active is not None:
+            members.append(restore(active))
+        else:
+            to_fit.append(histories.load_history(session, product=sibling))
+    if to_fit:
+        plain = ModelSpec.from_dict({**spec.to_dict(), "cross_prices": [], "pooling": "none"})
+        members += [f for f in fit_many(to_fit, plain) if isinstance(f, DemandFit)]
+    family = product.family or ""
+    pooled = pool_family(members, families={m.sku: family for m in members})
+    return pooled[0]

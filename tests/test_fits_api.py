@@ -250,3 +250,20 @@ def test_the_database_allows_one_active_fit_per_product(
     with pytest.raises(sa.exc.IntegrityError), engine.begin() as conn:
         conn.execute(sa.text("UPDATE fits SET status = 'active' WHERE version = 1"))
     engine.dispose()
+
+
+def test_family_pooling_reports_raw_and_pooled(shop: TestClient, headers: dict[str, str]) -> None:
+    spec = {**NAIVE, "pooling": "family"}
+    body = shop.post("/v1/products/TEA-021/fits", json={"spec": spec}, headers=headers).json()
+    pooled = body["pooled"]
+    assert pooled["family"] == "oolong"  # TEA-021 is an oolong tin
+    own = next(c for c in body["coefficients"] if c["term"] == "ln(price)")
+    assert math.isclose(pooled["raw"], own["estimate"], rel_tol=1e-12)
+    assert 0 <= pooled["weight_on_family"] <= 1
+    assert pooled["n_products"] >= 5
+    # Shrinkage moves the estimate toward the family mean, never past it.
+    low, high = sorted((pooled["raw"], pooled["family_mean"]))
+    assert low - 1e-12 <= pooled["pooled"] <= high + 1e-12
+    assert pooled["pooled_std_error"] <= pooled["raw_std_error"] + 1e-12
+    report = shop.get("/v1/products/TEA-021/elasticities", headers=headers).json()
+    assert report["pooled"] == pooled
