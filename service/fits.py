@@ -53,7 +53,9 @@ def parse_spec(raw: dict[str, Any] | None, *, field_prefix: str = "spec") -> Mod
         ) from None
 
 
-def quality_gates(fit: DemandFit, active: DemandFit | None, settings: Settings) -> list[GateResult]:
+def quality_gates(
+    fit: DemandFit, active_holdout_wape: float | None, settings: Settings
+) -> list[GateResult]:
     """The checks a fit must pass to become the product's active fit."""
     own = fit.own_price
     gates = [
@@ -80,7 +82,7 @@ def quality_gates(fit: DemandFit, active: DemandFit | None, settings: Settings) 
             f"{fit.quality.n_obs} observations (at least {settings.gate_min_observations} needed)",
         ),
     ]
-    new_wape, old_wape = fit.quality.holdout_wape, active.quality.holdout_wape if active else None
+    new_wape, old_wape = fit.quality.holdout_wape, active_holdout_wape
     if new_wape is None or old_wape is None:
         gates.append(
             GateResult(
@@ -148,7 +150,7 @@ def record_fit(
 ) -> FitRow:
     """Store a new version; activate it if it passes the gates (atomically), else reject it."""
     previous = active_row(session, product_id=product.id)
-    gates = quality_gates(fit, restore(previous) if previous else None, settings)
+    gates = quality_gates(fit, previous.holdout_wape if previous else None, settings)
     passed = all(g.passed for g in gates)
     version = (
         session.scalar(select(func.max(FitRow.version)).where(FitRow.product_id == product.id)) or 0
@@ -164,6 +166,8 @@ def record_fit(
         result=fit.to_dict(),
         gates={"passed": passed, "checks": [g.to_dict() for g in gates]},
         n_obs=fit.quality.n_obs,
+        holdout_wape=fit.quality.holdout_wape,
+        own_price_estimate=fit.own_price.estimate,
         window_start=_date(fit.window.first_period),
         window_end=_date(fit.window.last_period),
         created_at=utcnow(),

@@ -51,15 +51,6 @@ def api_key_out(row: ApiKeyRow) -> ApiKeyOut:
 
 
 def fit_summary(row: FitRow, sku: str) -> FitSummary:
-    result = row.result
-    own = next(
-        (
-            c
-            for c, t in zip(result["coefficients"], result["terms"], strict=True)
-            if t["kind"] == "own_price"
-        ),
-        None,
-    )
     return FitSummary(
         id=row.id,
         sku=sku,
@@ -67,8 +58,8 @@ def fit_summary(row: FitRow, sku: str) -> FitSummary:
         status=row.status,
         form=row.form,
         n_obs=row.n_obs,
-        own_price_estimate=own["estimate"] if own else None,
-        holdout_wape=result["quality"].get("holdout_wape"),
+        own_price_estimate=row.own_price_estimate,
+        holdout_wape=row.holdout_wape,
         created_at=as_utc(row.created_at),
     )
 

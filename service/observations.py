@@ -12,10 +12,10 @@ import datetime as dt
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
-from service.tables import ObservationRow
+from service.tables import ObservationRow, ProductRow, utcnow
 
 # (product_id, period ISO date, price, units, unit_cost, in_stock, covariates JSON text)
 ObservationTuple = tuple[int, str, float, float, float | None, bool | None, str | None]
@@ -65,6 +65,7 @@ class ObservationWriter:
         if not rows:
             return
         self.rows += len(rows)
+        self._mark_changed({row[0] for row in rows})
         if self._dialect == "sqlite":
             self._driver.executemany(
                 f"INSERT INTO observations ({_COLUMNS}) VALUES (?, ?, ?, ?, ?, ?, ?) "
@@ -85,6 +86,17 @@ class ObservationWriter:
             )
             self._inserted += int(cur.fetchone()[0])
             cur.execute("TRUNCATE observation_stage")
+
+    def _mark_changed(self, product_ids: set[int]) -> None:
+        """Record that these products' histories changed (incremental refits read it)."""
+        ids = sorted(product_ids)
+        now = utcnow()
+        for start in range(0, len(ids), 500):
+            self._conn.execute(
+                update(ProductRow)
+                .where(ProductRow.id.in_(ids[start : start + 500]))
+                .values(history_changed_at=now)
+            )
 
     def finish(self) -> tuple[int, int]:
         """(inserted, updated) for everything written so far."""

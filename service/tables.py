@@ -60,6 +60,9 @@ class ProductRow(Base):
     min_price: Mapped[float | None] = mapped_column(Float)
     max_price: Mapped[float | None] = mapped_column(Float)
     default_spec: Mapped[dict[str, Any] | None] = mapped_column(JsonDoc)
+    # When the product's history last changed: an incremental refit skips products
+    # whose latest fit is newer.
+    history_changed_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
     updated_at: Mapped[dt.datetime] = mapped_column(
         DateTime(timezone=True), default=utcnow, onupdate=utcnow
@@ -118,6 +121,10 @@ class FitRow(Base):
     result: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
     gates: Mapped[dict[str, Any] | None] = mapped_column(JsonDoc)
     n_obs: Mapped[int] = mapped_column(Integer)
+    # Copied out of `result` so gates and lists need not parse the whole record.
+    holdout_wape: Mapped[float | None] = mapped_column(Float)
+    own_price_estimate: Mapped[float | None] = mapped_column(Float)
+    job_id: Mapped[int | None] = mapped_column(ForeignKey("jobs.id", ondelete="SET NULL"))
     window_start: Mapped[dt.date | None] = mapped_column(Date)
     window_end: Mapped[dt.date | None] = mapped_column(Date)
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
@@ -149,9 +156,29 @@ class JobRow(Base):
     total: Mapped[int] = mapped_column(Integer, default=0)
     counts: Mapped[dict[str, int] | None] = mapped_column(JsonDoc)
     errors: Mapped[list[dict[str, Any]] | None] = mapped_column(JsonDoc)
+    message: Mapped[str | None] = mapped_column(String(500))
+    claimed_by: Mapped[str | None] = mapped_column(String(120))
+    schedule_name: Mapped[str | None] = mapped_column(String(64))
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
     started_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    heartbeat_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
     finished_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class ScheduleRunRow(Base):
+    """One row per (schedule, slot): the unique key makes each slot run exactly once,
+    however many schedulers race for it."""
+
+    __tablename__ = "schedule_runs"
+    __table_args__ = (UniqueConstraint("schedule_name", "slot"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    schedule_name: Mapped[str] = mapped_column(
+        ForeignKey("schedules.name", ondelete="CASCADE"), index=True
+    )
+    slot: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True))
+    job_id: Mapped[int | None] = mapped_column(ForeignKey("jobs.id", ondelete="SET NULL"))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
 
 
 class ScheduleRow(Base):
