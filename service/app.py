@@ -2,20 +2,25 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import logging
+import time
 import uuid
 from collections.abc import AsyncIterator, Awaitable, Callable
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI, Request, Response
 from fastapi.responses import JSONResponse
-from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError
+from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError, SQLAlchemyError
 
-from service.api import fits, health, imports, keys, observations, products
+from service import logs, metrics, schedules
+from service.api import fits, health, imports, jobs, keys, observations, products
+from service.api import metrics as metrics_route
 from service.db import make_engine, make_session_factory
 from service.errors import install_error_handlers, problem_response
 from service.limits import BodySizeLimit
 from service.settings import Settings, get_settings
+from service.worker import JobRunner, Worker
 
 API_DESCRIPTION = """\
 Marginal estimates how demand for each product responds to its price and to other
@@ -33,6 +38,7 @@ Errors are `application/problem+json` (RFC 9457). Authenticate with
 """
 
 logger = logging.getLogger("marginal")
+access_log = logging.getLogger("marginal.access")
 
 
 def create_app(settings: Settings | None = None) -> FastAPI:
@@ -40,7 +46,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        background = _start_background(app, settings)
         yield
+        for thread in background:
+            thread.stop()
         app.state.engine.dispose()
 
     app = FastAPI(
@@ -64,25 +73,71 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         default_limit=settings.body_limit_bytes,
         import_limit=settings.import_limit_bytes,
     )
-    app.middleware("http")(_request_id)
+    app.middleware("http")(_observe_request)
     for router in (
         health.router,
+        metrics_route.router,
         products.router,
         observations.router,
         imports.router,
         fits.router,
+        jobs.router,
         keys.router,
     ):
         app.include_router(router)
     return app
 
 
-async def _request_id(
+def _start_background(app: FastAPI, settings: Settings) -> list[Worker | schedules.Scheduler]:
+    """The job worker and the scheduler, when enabled; interrupted jobs are failed first."""
+    threads: list[Worker | schedules.Scheduler] = []
+    if settings.worker_enabled:
+        runner = JobRunner(app.state.engine, settings)
+        try:
+            runner.recover(dt.timedelta(seconds=settings.job_stale_seconds))
+        except SQLAlchemyError:
+            logger.exception("could not check for interrupted jobs")
+        threads.append(Worker(runner, poll_seconds=settings.worker_poll_seconds))
+    if settings.scheduler_enabled:
+        threads.append(
+            schedules.Scheduler(
+                app.state.write_sessions, tick_seconds=settings.scheduler_tick_seconds
+            )
+        )
+    for thread in threads:
+        thread.start()
+    return threads
+
+
+async def _observe_request(
     request: Request, call_next: Callable[[Request], Awaitable[Response]]
 ) -> Response:
+    """Request id, one structured log line and metrics per request (never the key itself)."""
     request_id = request.headers.get("x-request-id") or uuid.uuid4().hex
     request.state.request_id = request_id
-    response = await call_next(request)
+    token = logs.request_id.set(request_id)
+    started = time.perf_counter()
+    try:
+        response = await call_next(request)
+    finally:
+        logs.request_id.reset(token)
+    elapsed = time.perf_counter() - started
+    route = getattr(request.scope.get("route"), "path", "unmatched")
+    metrics.record_request(request.method, route, response.status_code, elapsed)
+    access_log.info(
+        "%s %s %s",
+        request.method,
+        route,
+        response.status_code,
+        extra={
+            "request_id": request_id,
+            "method": request.method,
+            "path": request.url.path,
+            "status": response.status_code,
+            "duration_ms": round(elapsed * 1000, 2),
+            "key_id": getattr(request.state, "key_id", None),
+        },
+    )
     response.headers["X-Request-ID"] = request_id
     return response
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 from collections.abc import Sequence
@@ -32,6 +33,9 @@ def _db(args: argparse.Namespace, settings: Settings) -> int:
 def _serve(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
+    from service import logs
+
+    logs.configure(settings.log_level)
     uvicorn.run(
         "service.app:create_app",
         factory=True,
@@ -39,6 +43,7 @@ def _serve(args: argparse.Namespace, settings: Settings) -> int:
         port=args.port or settings.port,
         workers=args.workers or settings.workers,
         log_level=settings.log_level,
+        log_config=None,
         proxy_headers=False,
     )
     return 0
@@ -81,6 +86,98 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
                 print(f"revoked key {args.key_id}")
     finally:
         engine.dispose()
+    return 0
+
+
+def _scope(args: argparse.Namespace) -> object:
+    if args.family:
+        return {"family": args.family}
+    if args.sku:
+        return {"skus": args.sku}
+    return "all"
+
+
+def _run_job(args: argparse.Namespace, settings: Settings) -> int:
+    """Create a job and run it here, with a progress bar on a terminal."""
+    from service import jobs as job_store
+    from service.db import make_engine, make_session_factory, session_scope
+    from service.progress import JobProgressDisplay, print_summary
+    from service.worker import JobRunner
+
+    request = json.loads(args.request) if getattr(args, "request", None) else None
+    spec = json.loads(args.spec) if getattr(args, "spec", None) else None
+    engine = make_engine(settings)
+    try:
+        with session_scope(make_session_factory(engine, writer=True)) as session:
+            job_id = job_store.create(
+                session,
+                kind=args.command,
+                scope=_scope(args),
+                force=args.force,
+                spec=spec,
+                request=request,
+            ).id
+        runner = JobRunner(engine, settings)
+        runner.claim(job_id)
+        with JobProgressDisplay(f"{args.command} job {job_id}") as display:
+            status = runner.run(job_id, on_progress=display.update)
+        with session_scope(make_session_factory(engine, writer=False)) as session:
+            row = job_store.get_or_raise(session, job_id=job_id)
+            print_summary(row)
+            failed = (row.counts or {}).get("failed", 0)
+    finally:
+        engine.dispose()
+    return 0 if status == job_store.SUCCEEDED and failed == 0 else 1
+
+
+def _jobs(args: argparse.Namespace, settings: Settings) -> int:
+    from service import jobs as job_store
+    from service.db import make_engine, make_session_factory, session_scope
+    from service.progress import print_job_list
+
+    engine = make_engine(settings)
+    try:
+        with session_scope(make_session_factory(engine, writer=False)) as session:
+            rows, _ = job_store.list_page(session, limit=args.limit, before_id=None)
+            print_job_list(rows)
+    finally:
+        engine.dispose()
+    return 0
+
+
+def _worker(args: argparse.Namespace, settings: Settings) -> int:
+    """Run queued jobs (and scheduled slots) until interrupted."""
+    import datetime as dt
+    import signal
+    import threading
+
+    from service import logs, schedules
+    from service.db import make_engine, make_session_factory
+    from service.worker import JobRunner, Worker
+
+    logs.configure(settings.log_level)
+    engine = make_engine(settings)
+    runner = JobRunner(engine, settings)
+    runner.recover(dt.timedelta(seconds=settings.job_stale_seconds))
+    threads: list[Worker | schedules.Scheduler] = [
+        Worker(runner, poll_seconds=settings.worker_poll_seconds)
+    ]
+    if settings.scheduler_enabled and not args.no_scheduler:
+        threads.append(
+            schedules.Scheduler(
+                make_session_factory(engine, writer=True),
+                tick_seconds=settings.scheduler_tick_seconds,
+            )
+        )
+    stop = threading.Event()
+    signal.signal(signal.SIGTERM, lambda *_: stop.set())
+    for thread in threads:
+        thread.start()
+    with contextlib.suppress(KeyboardInterrupt):
+        stop.wait()
+    for thread in threads:
+        thread.stop()
+    engine.dispose()
     return 0
 
 
@@ -140,6 +237,35 @@ def build_parser() -> argparse.ArgumentParser:
     revoke = key_actions.add_parser("revoke", help="revoke a key by id")
     revoke.add_argument("key_id")
     keys.set_defaults(run=_keys)
+
+    for kind, text in (("refit", "refit demand models"), ("reprice", "recommend prices")):
+        job = commands.add_parser(kind, help=f"{text} for all products, a family or skus")
+        which = job.add_mutually_exclusive_group()
+        which.add_argument("--all", action="store_true", help="every product (the default)")
+        which.add_argument("--family", help="one family")
+        which.add_argument("--sku", action="append", help="a sku; repeat for several")
+        job.add_argument(
+            "--force",
+            action="store_true",
+            help="refit: also products whose history has not changed",
+        )
+        if kind == "refit":
+            job.add_argument("--spec", help="one model spec (JSON) for every product")
+        else:
+            job.add_argument("--request", help="optimal-price request body (JSON) for each")
+        job.set_defaults(run=_run_job)
+
+    listing = commands.add_parser("jobs", help="list recent jobs")
+    listing.add_argument("--limit", type=int, default=20)
+    listing.set_defaults(run=_jobs)
+
+    worker = commands.add_parser("worker", help="run queued and scheduled jobs until stopped")
+    worker.add_argument(
+        "--no-scheduler",
+        action="store_true",
+        help="only run jobs; let other processes start scheduled slots",
+    )
+    worker.set_defaults(run=_worker)
 
     openapi = commands.add_parser("openapi", help="write the OpenAPI document")
     openapi.add_argument("--out", default=str(OPENAPI_PATH))

@@ -53,6 +53,13 @@ def _caller(
     return principal
 
 
+def check_scope(request: Request, authorization: str | None, scope: Scope) -> Principal:
+    """The same check as :func:`requires`, for routes that decide at run time."""
+    principal = _caller(request, authorization)
+    auth.require(principal, scope)
+    return principal
+
+
 def requires(scope: Scope) -> DependsParam:
     """A dependency that admits callers whose key carries ``scope``."""
 

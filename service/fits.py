@@ -19,7 +19,7 @@ from models import (
     fit_many,
     pool_family,
 )
-from service import histories, products
+from service import histories, metrics, products
 from service.errors import ErrorItem, InvalidInput, NotFound
 from service.settings import Settings
 from service.tables import FitRow, ProductRow, utcnow
@@ -157,24 +157,38 @@ def record_fit(
     ) + 1
     if passed and previous is not None:
         session.execute(update(FitRow).where(FitRow.id == previous.id).values(status=SUPERSEDED))
-    row = FitRow(
-        product_id=product.id,
-        version=version,
-        status=ACTIVE if passed else REJECTED,
-        form=fit.form,
-        spec=fit.spec.to_dict(),
-        result=fit.to_dict(),
-        gates={"passed": passed, "checks": [g.to_dict() for g in gates]},
-        n_obs=fit.quality.n_obs,
-        holdout_wape=fit.quality.holdout_wape,
-        own_price_estimate=fit.own_price.estimate,
-        window_start=_date(fit.window.first_period),
-        window_end=_date(fit.window.last_period),
-        created_at=utcnow(),
-    )
+    row = FitRow(**row_values(product_id=product.id, version=version, fit=fit, gates=gates))
     session.add(row)
     session.flush()
     return row
+
+
+def row_values(
+    *,
+    product_id: int,
+    version: int,
+    fit: DemandFit,
+    gates: list[GateResult],
+    job_id: int | None = None,
+) -> dict[str, Any]:
+    """The columns of a new fit record; active only if every gate passed."""
+    passed = all(g.passed for g in gates)
+    return {
+        "product_id": product_id,
+        "version": version,
+        "status": ACTIVE if passed else REJECTED,
+        "form": fit.form,
+        "spec": fit.spec.to_dict(),
+        "result": fit.to_dict(),
+        "gates": {"passed": passed, "checks": [g.to_dict() for g in gates]},
+        "n_obs": fit.quality.n_obs,
+        "holdout_wape": fit.quality.holdout_wape,
+        "own_price_estimate": fit.own_price.estimate,
+        "job_id": job_id,
+        "window_start": _date(fit.window.first_period),
+        "window_end": _date(fit.window.last_period),
+        "created_at": utcnow(),
+    }
 
 
 def _date(text: str | None) -> dt.date | None:
@@ -203,7 +217,9 @@ def fit_now(
         ) from None
     if model_spec.pooling == "family" and product.family:
         fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
-    return record_fit(session, product=product, fit=fit, settings=settings)
+    row = record_fit(session, product=product, fit=fit, settings=settings)
+    metrics.record_fit("activated" if row.status == ACTIVE else "rejected")
+    return row
 
 
 def pool_with_family(

@@ -3,9 +3,31 @@
 from __future__ import annotations
 
 import datetime as dt
+from typing import Any
 
-from service.schemas import ApiKeyOut, FitOut, FitSummary, ObservationOut, ProductOut
-from service.tables import ApiKeyRow, FitRow, ObservationRow, ProductRow, as_utc
+from service.schemas import (
+    ApiKeyOut,
+    FitOut,
+    FitSummary,
+    JobCounts,
+    JobError,
+    JobIn,
+    JobOut,
+    JobProgress,
+    ObservationOut,
+    ProductOut,
+    ScheduleOut,
+)
+from service.tables import (
+    ApiKeyRow,
+    FitRow,
+    JobRow,
+    ObservationRow,
+    ProductRow,
+    ScheduleRow,
+    ScheduleRunRow,
+    as_utc,
+)
 
 
 def _utc_or_none(value: dt.datetime | None) -> dt.datetime | None:
@@ -79,4 +101,40 @@ def fit_out(row: FitRow, sku: str) -> FitOut:
         price_range=list(result["price_range"]),
         candidate_scores=result.get("candidate_scores") or {},
         pooled=result.get("pooled"),
+    )
+
+
+def job_out(row: JobRow) -> JobOut:
+    scope: Any = "all" if row.scope == {"all": True} else row.scope
+    return JobOut(
+        id=row.id,
+        kind=row.kind,
+        scope=scope,
+        force=bool((row.options or {}).get("force")),
+        status=row.status,
+        progress=JobProgress(done=row.done, total=row.total),
+        counts=JobCounts(**(row.counts or {})),
+        errors=[JobError(**e) for e in (row.errors or [])],
+        message=row.message,
+        schedule=row.schedule_name,
+        created_at=as_utc(row.created_at),
+        started_at=_utc_or_none(row.started_at),
+        finished_at=_utc_or_none(row.finished_at),
+    )
+
+
+def schedule_out(
+    row: ScheduleRow, last: ScheduleRunRow | None, next_run: dt.datetime | None
+) -> ScheduleOut:
+    return ScheduleOut(
+        name=row.name,
+        cron=row.cron,
+        timezone=row.timezone,
+        job=JobIn.model_validate(row.job),
+        enabled=row.enabled,
+        next_run_at=next_run,
+        last_run_at=_utc_or_none(last.slot) if last else None,
+        last_job_id=last.job_id if last else None,
+        created_at=as_utc(row.created_at),
+        updated_at=as_utc(row.updated_at),
     )

@@ -349,3 +349,94 @@ class PredictionOut(BaseModel):
     unit_cost: float | None
     point: dict[str, float | None]
     warnings: list[WarningOut]
+
+
+# ---------------------------------------------------------------- jobs and schedules
+
+JobKind = Literal["refit", "reprice"]
+JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
+
+
+class FamilyScope(Strict):
+    family: Family
+
+
+class SkusScope(Strict):
+    skus: Annotated[list[Sku], Field(min_length=1, max_length=100_000)]
+
+
+JobScope = Literal["all"] | FamilyScope | SkusScope
+
+
+class JobIn(Strict):
+    kind: JobKind
+    scope: JobScope = Field(
+        default="all", description='"all", {"family": "..."} or {"skus": ["...", ...]}'
+    )
+    force: bool = Field(
+        default=False,
+        description="refit: also products whose history has not changed since their latest fit",
+    )
+    spec: dict[str, Any] | None = Field(
+        default=None, description="refit: one spec for every product (default: each product's)"
+    )
+    request: dict[str, Any] | None = Field(
+        default=None,
+        description="reprice: the optimal-price request body applied to every product",
+    )
+
+
+class JobProgress(BaseModel):
+    done: int
+    total: int
+
+
+class JobCounts(BaseModel):
+    activated: int = 0
+    rejected: int = 0
+    failed: int = 0
+    skipped: int = 0
+    recommended: int = 0
+
+
+class JobError(BaseModel):
+    sku: str
+    reason: str
+
+
+class JobOut(BaseModel):
+    id: int
+    kind: JobKind
+    scope: Any = Field(description='"all", {"family": "..."} or {"skus": [...]}')
+    force: bool
+    status: JobStatus
+    progress: JobProgress
+    counts: JobCounts
+    errors: list[JobError]
+    message: str | None
+    schedule: str | None = Field(description="The schedule that started the job, if any")
+    created_at: dt.datetime
+    started_at: dt.datetime | None
+    finished_at: dt.datetime | None
+
+
+class ScheduleIn(Strict):
+    cron: Annotated[str, StringConstraints(min_length=9, max_length=100)] = Field(
+        description="Five-field cron expression, e.g. `30 2 * * *` (02:30 every day)"
+    )
+    timezone: Annotated[str, StringConstraints(min_length=1, max_length=64)] = "UTC"
+    job: JobIn
+    enabled: bool = True
+
+
+class ScheduleOut(BaseModel):
+    name: str
+    cron: str
+    timezone: str
+    job: JobIn
+    enabled: bool
+    next_run_at: dt.datetime | None
+    last_run_at: dt.datetime | None = Field(description="The slot of the latest run")
+    last_job_id: int | None
+    created_at: dt.datetime
+    updated_at: dt.datetime

@@ -46,6 +46,25 @@ class Settings(BaseSettings):
         "at most this fraction",
     )
 
+    worker_enabled: bool = Field(
+        default=True, description="Run queued jobs in a thread of the service process"
+    )
+    scheduler_enabled: bool = Field(
+        default=True, description="Start scheduled jobs from this process (safe on replicas)"
+    )
+    job_batch_size: int = Field(
+        default=500, ge=1, description="Products a job fits and commits together"
+    )
+    worker_poll_seconds: float = 1.0
+    scheduler_tick_seconds: float = 15.0
+    job_stale_seconds: float = Field(
+        default=300.0,
+        description="A running job whose worker has not reported for this long is failed",
+    )
+    metrics_public: bool = Field(
+        default=True, description="Serve /metrics without an API key (else: admin scope)"
+    )
+
     @property
     def is_sqlite(self) -> bool:
         return self.database_url.startswith("sqlite")

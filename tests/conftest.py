@@ -24,6 +24,10 @@ from service.db import make_engine, make_session_factory, session_scope
 from service.settings import Settings
 from service.tables import Base
 
+# Tests start the job worker and the scheduler themselves where they need them.
+os.environ.setdefault("MARGINAL_WORKER_ENABLED", "false")
+os.environ.setdefault("MARGINAL_SCHEDULER_ENABLED", "false")
+
 POSTGRES_URL = os.environ.get(
     "MARGINAL_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test"
 )

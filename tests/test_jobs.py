@@ -1,0 +1,206 @@
+"""Refit jobs end to end: gates, incremental runs, scopes, the background worker, crashes."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+import sqlalchemy as sa
+from fastapi.testclient import TestClient
+
+from service import demo
+from service.app import create_app
+from service.db import make_engine
+from service.settings import Settings
+from service.worker import JobRunner
+from tests.conftest import Database
+
+pytestmark = pytest.mark.storage
+TRAPS = {"TEA-001": "expected_sign", "TEA-009": "price_variation"}
+SHORT_HISTORY = "TEA-017"
+ROOT = Path(__file__).resolve().parent.parent
+
+
+@pytest.fixture
+def shop(db: Database, client: TestClient) -> TestClient:
+    demo.load(db.settings, seed=7)
+    return client
+
+
+def run_queued(settings: Settings) -> list[int]:
+    """Run every queued job here, the way the worker thread would."""
+    engine = make_engine(settings)
+    runner = JobRunner(engine, settings)
+    done = []
+    while (job_id := runner.claim()) is not None:
+        runner.run(job_id)
+        done.append(job_id)
+    engine.dispose()
+    return done
+
+
+def active_fits(settings: Settings) -> dict[str, int]:
+    engine = make_engine(settings)
+    with engine.connect() as conn:
+        rows = conn.execute(sa.text(
+            "SELECT p.sku, count(f.id) FROM products p LEFT JOIN fits f "
+            "ON f.product_id = p.id AND f.status = 'active' GROUP BY p.sku")).all()
+    engine.dispose()
+    return {sku: int(n) for sku, n in rows}
+
+
+def test_refit_job_activates_passing_fits_and_rejects_the_traps(
+    shop: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    created = shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
+    assert created.status_code == 202
+    assert created.json()["status"] == "queued"
+    [job_id] = run_queued(db.settings)
+    job = shop.get(f"/v1/jobs/{job_id}", headers=headers).json()
+    assert job["status"] == "succeeded"
+    assert job["progress"] == {"done": 40, "total": 40}
+    counts = job["counts"]
+    assert counts["activated"] + counts["rejected"] + counts["failed"] == 40
+    reasons = {e["sku"]: e["reason"] for e in job["errors"]}
+    for sku, gate in TRAPS.items():
+        assert gate in reasons[sku], reasons
+    assert "more" in reasons[SHORT_HISTORY]  # says how many more observations it needs
+    active = active_fits(db.settings)
+    assert sum(active.values()) == counts["activated"] >= 33
+    assert all(n <= 1 for n in active.values())
+    assert all(active[sku] == 0 for sku in (*TRAPS, SHORT_HISTORY))
+    # every product not activated is explained
+    assert {sku for sku, n in active.items() if n == 0} == set(reasons)
+
+
+def test_incremental_refit_skips_untouched_products(
+    shop: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
+    run_queued(db.settings)
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
+    [second] = run_queued(db.settings)
+    job = shop.get(f"/v1/jobs/{second}", headers=headers).json()
+    # only the product without any fit (too little data) is tried again
+    assert job["counts"]["skipped"] == 39 and job["counts"]["failed"] == 1
+
+    new_week = {"observations": [{"period": "2026-01-05", "price": 9.5, "units": 40,
+                                  "covariates": {"rival_price": 1.0, "promo": 0,
+                                                 "ad_spend": 200.0, "holiday": 0}}]}
+    shop.post("/v1/products/TEA-004/observations", json=new_week, headers=headers)
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
+    [third] = run_queued(db.settings)
+    job = shop.get(f"/v1/jobs/{third}", headers=headers).json()
+    assert job["counts"]["skipped"] == 38
+    assert job["counts"]["activated"] + job["counts"]["rejected"] == 1
+
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all", "force": True}, headers=headers)
+    [forced] = run_queued(db.settings)
+    assert shop.get(f"/v1/jobs/{forced}", headers=headers).json()["counts"]["skipped"] == 0
+
+
+def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None:
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": {"family": "black"}}, headers=headers)
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": {"skus": ["TEA-004", "NOPE-9"]},
+                                "spec": {"form": "log-log"}}, headers=headers)
+    family_job, sku_job = run_queued(db.settings)
+    family = shop.get(f"/v1/jobs/{family_job}", headers=headers).json()
+    assert family["progress"]["total"] == 8 and family["scope"] == {"family": "black"}
+    skus = shop.get(f"/v1/jobs/{sku_job}", headers=headers).json()
+    assert skus["progress"]["total"] == 2
+    assert skus["counts"]["failed"] == 1
+    assert {"sku": "NOPE-9", "reason": "no such product"} in skus["errors"]
+    fit = shop.get("/v1/products/TEA-004/demand-model", headers=headers).json()
+    assert fit["spec"]["form"] == "log-log" and fit["spec"]["covariates"] == []
+    listed = shop.get("/v1/jobs", params={"limit": 1}, headers=headers).json()
+    assert [j["id"] for j in listed["items"]] == [sku_job]
+    assert listed["next_cursor"]
+
+
+@pytest.mark.parametrize("body", [
+    {"kind": "retrain", "scope": "all"},
+    {"kind": "refit", "scope": "everything"},
+    {"kind": "refit", "scope": {"skus": []}},
+    {"kind": "refit", "scope": {"family": "green", "skus": ["A"]}},
+])
+def test_bad_job_requests(shop: TestClient, headers: dict[str, str], body: object) -> None:
+    response = shop.post("/v1/jobs", json=body, headers=headers)
+    assert response.status_code == 422
+    assert response.headers["content-type"] == "application/problem+json"
+
+
+def test_the_service_worker_runs_jobs_in_the_background(
+    db: Database, headers: dict[str, str]
+) -> None:
+    demo.load(db.settings, seed=7)
+    settings = db.settings.model_copy(update={"worker_enabled": True,
+                                              "worker_poll_seconds": 0.1})
+    with TestClient(create_app(settings)) as client:
+        job = client.post("/v1/jobs", json={"kind": "refit", "scope": {"family": "oolong"}},
+                          headers=headers).json()
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline:
+            state = client.get(f"/v1/jobs/{job['id']}", headers=headers).json()
+            if state["status"] in ("succeeded", "failed"):
+                break
+            time.sleep(0.2)
+        assert state["status"] == "succeeded", state
+        assert state["started_at"] and state["finished_at"]
+        metrics = client.get("/metrics").text
+        assert 'marginal_jobs_total{kind="refit",status="succeeded"}' in metrics
+        assert "marginal_http_requests_total" in metrics
+
+
+@pytest.fixture
+def slow_batches(db: Database) -> Iterator[dict[str, str]]:
+    env = dict(os.environ)
+    env["MARGINAL_DATABASE_URL"] = db.settings.database_url
+    if db.settings.database_schema:
+        env["MARGINAL_DATABASE_SCHEMA"] = db.settings.database_schema
+    env["MARGINAL_JOB_BATCH_SIZE"] = "1"  # one commit per product
+    yield env
+
+
+def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
+    db: Database, headers: dict[str, str], slow_batches: dict[str, str]
+) -> None:
+    demo.load(db.settings, seed=7)
+    run_refit_cli = [sys.executable, "-m", "service.cli", "refit", "--all", "--force"]
+    subprocess.run(run_refit_cli, env=slow_batches, cwd=ROOT, check=False,
+                   capture_output=True, timeout=300)
+    before = active_fits(db.settings)
+    assert sum(before.values()) >= 33
+
+    child = subprocess.Popen(run_refit_cli, env=slow_batches, cwd=ROOT,
+                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    engine = make_engine(db.settings)
+    deadline = time.monotonic() + 120
+    done = 0
+    while time.monotonic() < deadline and done < 5:
+        time.sleep(0.05)
+        with engine.connect() as conn:
+            done = conn.execute(sa.text(
+                "SELECT coalesce(max(done), 0) FROM jobs WHERE status = 'running'")).scalar_one()
+    child.send_signal(signal.SIGKILL)
+    child.wait(timeout=30)
+    assert 5 <= done < 40, "the job must be killed part of the way through"
+
+    after = active_fits(db.settings)
+    assert after == before  # every product still has exactly its one active fit
+    with TestClient(create_app(db.settings.model_copy(update={"worker_enabled": True}))) as app:
+        jobs = app.get("/v1/jobs", headers=headers).json()["items"]
+    killed = jobs[0]
+    assert killed["status"] == "failed"
+    assert "interrupted" in killed["message"]
+    assert 0 < killed["progress"]["done"] < 40
+    with engine.connect() as conn:
+        newer = conn.execute(sa.text(
+            "SELECT count(*) FROM fits WHERE job_id = :job"), {"job": killed["id"]}).scalar_one()
+    engine.dispose()
+    assert newer >= 4  # the batches committed before the kill were kept
