@@ -48,9 +48,12 @@ def run_queued(settings: Settings) -> list[int]:
 def active_fits(settings: Settings) -> dict[str, int]:
     engine = make_engine(settings)
     with engine.connect() as conn:
-        rows = conn.execute(sa.text(
-            "SELECT p.sku, count(f.id) FROM products p LEFT JOIN fits f "
-            "ON f.product_id = p.id AND f.status = 'active' GROUP BY p.sku")).all()
+        rows = conn.execute(
+            sa.text(
+                "SELECT p.sku, count(f.id) FROM products p LEFT JOIN fits f "
+                "ON f.product_id = p.id AND f.status = 'active' GROUP BY p.sku"
+            )
+        ).all()
     engine.dispose()
     return {sku: int(n) for sku, n in rows}
 
@@ -90,9 +93,16 @@ def test_incremental_refit_skips_untouched_products(
     # only the product without any fit (too little data) is tried again
     assert job["counts"]["skipped"] == 39 and job["counts"]["failed"] == 1
 
-    new_week = {"observations": [{"period": "2026-01-05", "price": 9.5, "units": 40,
-                                  "covariates": {"rival_price": 1.0, "promo": 0,
-                                                 "ad_spend": 200.0, "holiday": 0}}]}
+    new_week = {
+        "observations": [
+            {
+                "period": "2026-01-05",
+                "price": 9.5,
+                "units": 40,
+                "covariates": {"rival_price": 1.0, "promo": 0, "ad_spend": 200.0, "holiday": 0},
+            }
+        ]
+    }
     shop.post("/v1/products/TEA-004/observations", json=new_week, headers=headers)
     shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
     [third] = run_queued(db.settings)
@@ -107,8 +117,15 @@ def test_incremental_refit_skips_untouched_products(
 
 def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None:
     shop.post("/v1/jobs", json={"kind": "refit", "scope": {"family": "black"}}, headers=headers)
-    shop.post("/v1/jobs", json={"kind": "refit", "scope": {"skus": ["TEA-004", "NOPE-9"]},
-                                "spec": {"form": "log-log"}}, headers=headers)
+    shop.post(
+        "/v1/jobs",
+        json={
+            "kind": "refit",
+            "scope": {"skus": ["TEA-004", "NOPE-9"]},
+            "spec": {"form": "log-log"},
+        },
+        headers=headers,
+    )
     family_job, sku_job = run_queued(db.settings)
     family = shop.get(f"/v1/jobs/{family_job}", headers=headers).json()
     assert family["progress"]["total"] == 8 and family["scope"] == {"family": "black"}
@@ -123,12 +140,15 @@ def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None
     assert listed["next_cursor"]
 
 
-@pytest.mark.parametrize("body", [
-    {"kind": "retrain", "scope": "all"},
-    {"kind": "refit", "scope": "everything"},
-    {"kind": "refit", "scope": {"skus": []}},
-    {"kind": "refit", "scope": {"family": "green", "skus": ["A"]}},
-])
+@pytest.mark.parametrize(
+    "body",
+    [
+        {"kind": "retrain", "scope": "all"},
+        {"kind": "refit", "scope": "everything"},
+        {"kind": "refit", "scope": {"skus": []}},
+        {"kind": "refit", "scope": {"family": "green", "skus": ["A"]}},
+    ],
+)
 def test_bad_job_requests(shop: TestClient, headers: dict[str, str], body: object) -> None:
     response = shop.post("/v1/jobs", json=body, headers=headers)
     assert response.status_code == 422
@@ -139,11 +159,11 @@ def test_the_service_worker_runs_jobs_in_the_background(
     db: Database, headers: dict[str, str]
 ) -> None:
     demo.load(db.settings, seed=7)
-    settings = db.settings.model_copy(update={"worker_enabled": True,
-                                              "worker_poll_seconds": 0.1})
+    settings = db.settings.model_copy(update={"worker_enabled": True, "worker_poll_seconds": 0.1})
     with TestClient(create_app(settings)) as client:
-        job = client.post("/v1/jobs", json={"kind": "refit", "scope": {"family": "oolong"}},
-                          headers=headers).json()
+        job = client.post(
+            "/v1/jobs", json={"kind": "refit", "scope": {"family": "oolong"}}, headers=headers
+        ).json()
         deadline = time.monotonic() + 120
         while time.monotonic() < deadline:
             state = client.get(f"/v1/jobs/{job['id']}", headers=headers).json()
@@ -172,21 +192,28 @@ def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
 ) -> None:
     demo.load(db.settings, seed=7)
     run_refit_cli = [sys.executable, "-m", "service.cli", "refit", "--all", "--force"]
-    subprocess.run(run_refit_cli, env=slow_batches, cwd=ROOT, check=False,
-                   capture_output=True, timeout=300)
+    subprocess.run(
+        run_refit_cli, env=slow_batches, cwd=ROOT, check=False, capture_output=True, timeout=300
+    )
     before = active_fits(db.settings)
     assert sum(before.values()) >= 33
 
-    child = subprocess.Popen(run_refit_cli, env=slow_batches, cwd=ROOT,
-                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    child = subprocess.Popen(
+        run_refit_cli,
+        env=slow_batches,
+        cwd=ROOT,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     engine = make_engine(db.settings)
     deadline = time.monotonic() + 120
     done = 0
     while time.monotonic() < deadline and done < 5:
         time.sleep(0.05)
         with engine.connect() as conn:
-            done = conn.execute(sa.text(
-                "SELECT coalesce(max(done), 0) FROM jobs WHERE status = 'running'")).scalar_one()
+            done = conn.execute(
+                sa.text("SELECT coalesce(max(done), 0) FROM jobs WHERE status = 'running'")
+            ).scalar_one()
     child.send_signal(signal.SIGKILL)
     child.wait(timeout=30)
     assert 5 <= done < 40, "the job must be killed part of the way through"
@@ -200,7 +227,8 @@ def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
     assert "interrupted" in killed["message"]
     assert 0 < killed["progress"]["done"] < 40
     with engine.connect() as conn:
-        newer = conn.execute(sa.text(
-            "SELECT count(*) FROM fits WHERE job_id = :job"), {"job": killed["id"]}).scalar_one()
+        newer = conn.execute(
+            sa.text("SELECT count(*) FROM fits WHERE job_id = :job"), {"job": killed["id"]}
+        ).scalar_one()
     engine.dispose()
     assert newer >= 4  # the batches committed before the kill were kept
