@@ -151,7 +151,8 @@ def high_water_mb():
     return float("nan")
 before = high_water_mb()
 started = time.perf_counter()
-with open(sys.argv[3], "rb") as raw, session_scope(make_session_factory(engine, writer=True, bulk_load=True)) as s:
+sessions = make_session_factory(engine, writer=True, bulk_load=True)
+with open(sys.argv[3], "rb") as raw, session_scope(sessions) as s:
     outcome = import_csv(s, raw, create_products=False, chunk_rows=settings.import_chunk_rows)
 elapsed = time.perf_counter() - started
 print(json.dumps({"seconds": elapsed, "rows": outcome.rows, "inserted": outcome.inserted,

@@ -57,7 +57,9 @@ class Estimate:
         return critical_value(level, self.df_resid if self.use_t else None)
 
     def pvalues(self) -> FloatArray:
-        tvalues = self.params / self.bse
+        # An exact fit has zero standard errors: t is infinite and p is 0, not an error.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            tvalues = self.params / self.bse
         if self.use_t:
             return t_two_sided_p(tvalues, self.df_resid)
         result: FloatArray = 2.0 * special.ndtr(-np.abs(tvalues))

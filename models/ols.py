@@ -76,7 +76,9 @@ class OLSStack:
     @cached_property
     def llf(self) -> FloatArray:
         n = self.n_obs
-        result: FloatArray = -0.5 * n * (np.log(2.0 * np.pi) + np.log(self.ssr / n) + 1.0)
+        # An exact fit (zero residuals) has an infinite likelihood; AIC/BIC become None.
+        with np.errstate(divide="ignore"):
+            result: FloatArray = -0.5 * n * (np.log(2.0 * np.pi) + np.log(self.ssr / n) + 1.0)
         return result
 
     @cached_property
@@ -386,13 +388,15 @@ def _placeholder_columns(n: int, p: int) -> FloatArray:
     return cols
 
 
+@np.errstate(divide="ignore", invalid="ignore")
 def durbin_watson(resid: FloatArray) -> FloatArray:
-    """Durbin-Watson statistic of each row of residuals."""
+    """Durbin-Watson statistic of each row of residuals (NaN when they are all zero)."""
     step = np.diff(resid, axis=1)
     result: FloatArray = np.einsum("bn,bn->b", step, step) / np.einsum("bn,bn->b", resid, resid)
     return result
 
 
+@np.errstate(divide="ignore", invalid="ignore")
 def jarque_bera_p(resid: FloatArray) -> FloatArray:
     """Jarque-Bera normality p-value per row, with the biased moments statsmodels uses."""
     n = resid.shape[1]

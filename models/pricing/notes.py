@@ -1,0 +1,121 @@
+"""Warning codes of a price recommendation, each with a sentence for people."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Final
+
+from models.guards import EXTRAPOLATION
+from models.result import FitWarning
+
+UNBOUNDED_ABOVE: Final = "objective_unbounded_above"
+UNBOUNDED_BELOW: Final = "objective_unbounded_below"
+COST_ABOVE_PRICES: Final = "cost_above_feasible_prices"
+WRONG_SIGN_FORCED: Final = "own_price_wrong_sign_forced"
+NO_DEMAND: Final = "no_expected_demand"
+DRAWS_WRONG_SIGN: Final = "draws_wrong_sign"
+UNCERTAINTY_UNAVAILABLE: Final = "uncertainty_unavailable"
+NO_CURRENT_FIGURES: Final = "current_figures_unavailable"
+
+WARNING_CODES: Final = (
+    EXTRAPOLATION,
+    UNBOUNDED_ABOVE,
+    UNBOUNDED_BELOW,
+    COST_ABOVE_PRICES,
+    WRONG_SIGN_FORCED,
+    NO_DEMAND,
+    DRAWS_WRONG_SIGN,
+    UNCERTAINTY_UNAVAILABLE,
+    NO_CURRENT_FIGURES,
+)
+
+
+def _names(binding: Sequence[str]) -> str:
+    return ", ".join(binding) if binding else "a price limit"
+
+
+def unbounded(
+    direction: str,
+    objective: str,
+    elasticity: float,
+    binding: Sequence[str],
+    *,
+    through_siblings: bool = False,
+) -> FitWarning:
+    """The optimum sits on a bound only because the objective keeps improving past it.
+
+    ``through_siblings``: in a family, the product's own figures have an optimum, but
+    the family total keeps improving because its siblings gain the demand it loses.
+    """
+    code = UNBOUNDED_ABOVE if direction == "above" else UNBOUNDED_BELOW
+    moves = "rises" if direction == "above" else "falls"
+    side = "upper" if direction == "above" else "lower"
+    if through_siblings:
+        why = (
+            "the products whose demand depends on this price gain more than it loses "
+            "(cross-price effects of the fitted family)"
+        )
+    elif direction == "above" and elasticity > -1.0:
+        why = (
+            f"demand is inelastic (own-price elasticity {elasticity:.3g} at the recommended "
+            "price, above -1)"
+        )
+    elif direction == "above":
+        why = f"the fitted demand never becomes elastic enough (elasticity {elasticity:.3g})"
+    else:
+        why = f"demand is elastic at every price (own-price elasticity {elasticity:.3g})"
+    return FitWarning(
+        code,
+        f"The {objective} grows without limit as the price {moves} because {why}: the "
+        f"recommendation sits on the {side} bound ({_names(binding)}) because of that, not "
+        "at an optimum. Treat it as bound-driven.",
+    )
+
+
+def cost_above(unit_cost: float, highest: float, objective: str) -> FitWarning:
+    tail = (
+        "the recommendation is the allowed price that loses least"
+        if objective == "profit"
+        else "the revenue-maximising price sells below cost"
+    )
+    return FitWarning(
+        COST_ABOVE_PRICES,
+        f"Unit cost {unit_cost:g} is above every allowed price (at most {highest:.6g}): each "
+        f"unit sells at a loss; {tail}.",
+    )
+
+
+def wrong_sign_forced(coef: float) -> FitWarning:
+    return FitWarning(
+        WRONG_SIGN_FORCED,
+        f"The own-price coefficient is {coef:+.3g} (demand rises with price); the price was "
+        "optimised anyway because force was set, so the result follows the constraints, "
+        "not the market.",
+    )
+
+
+def no_demand(price: float) -> FitWarning:
+    return FitWarning(
+        NO_DEMAND,
+        f"Expected units are zero at the recommended price {price:.6g}: the fitted linear "
+        "demand reaches zero inside the allowed prices.",
+    )
+
+
+def draws_wrong_sign(share: float) -> FitWarning:
+    return FitWarning(
+        DRAWS_WRONG_SIGN,
+        f"{share:.0%} of the coefficient draws have a non-negative own-price effect; the "
+        "price interval includes their bound-driven optima.",
+    )
+
+
+def uncertainty_unavailable(reason: str) -> FitWarning:
+    return FitWarning(UNCERTAINTY_UNAVAILABLE, f"No uncertainty figures: {reason}.")
+
+
+def no_current_figures(missing: Sequence[str]) -> FitWarning:
+    return FitWarning(
+        NO_CURRENT_FIGURES,
+        f"No current figures for the family: current prices are missing for {', '.join(missing)}.",
+    )
