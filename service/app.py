@@ -14,7 +14,7 @@ from fastapi.responses import JSONResponse
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError, SQLAlchemyError
 
 from service import logs, metrics, schedules
-from service.api import fits, health, imports, jobs, keys, observations, products
+from service.api import fits, health, imports, jobs, keys, observations, pricing, products
 from service.api import metrics as metrics_route
 from service.db import make_engine, make_session_factory
 from service.errors import install_error_handlers, problem_response
@@ -81,6 +81,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         observations.router,
         imports.router,
         fits.router,
+        pricing.router,
         jobs.router,
         keys.router,
     ):

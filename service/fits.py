@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import datetime as dt
+import threading
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
@@ -22,7 +24,7 @@ from models import (
 from service import histories, metrics, products
 from service.errors import ErrorItem, InvalidInput, NotFound
 from service.settings import Settings
-from service.tables import FitRow, ProductRow, utcnow
+from service.tables import FitRow, ProductRow, as_utc, utcnow
 
 ACTIVE, SUPERSEDED, REJECTED = "active", "superseded", "rejected"
 
@@ -116,6 +118,57 @@ def active_or_raise(session: Session, *, product: ProductRow) -> FitRow:
             f"/v1/products/{product.sku}/fits"
         )
     return row
+
+
+_CACHE_SIZE = 2048
+
+
+class FitCache:
+    """Restored fits, keyed by fit id and creation time.
+
+    Fit records never change, so an entry never goes stale; the creation time guards
+    against a database that reuses the id of a deleted record (SQLite can).
+    """
+
+    def __init__(self, size: int = _CACHE_SIZE) -> None:
+        self.size = size
+        self._items: OrderedDict[tuple[int, str], DemandFit] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, session: Session, fit_id: int, created_at: dt.datetime) -> DemandFit:
+        key = (fit_id, as_utc(created_at).isoformat())
+        with self._lock:
+            fit = self._items.get(key)
+            if fit is not None:
+                self._items.move_to_end(key)
+                return fit
+        result = session.scalar(select(FitRow.result).where(FitRow.id == fit_id))
+        if result is None:
+            raise NotFound(f"no fit {fit_id}")
+        fit = DemandFit.from_dict(result)
+        with self._lock:
+            self._items[key] = fit
+            while len(self._items) > self.size:
+                self._items.popitem(last=False)
+        return fit
+
+
+fit_cache = FitCache()
+
+
+def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
+    """The active fit's id and the fit itself (restored once, then cached)."""
+    found = session.execute(
+        select(FitRow.id, FitRow.created_at).where(
+            FitRow.product_id == product.id, FitRow.status == ACTIVE
+        )
+    ).first()
+    if found is None:
+        raise NotFound(
+            f"product {product.sku!r} has no active fit; fit one with POST "
+            f"/v1/products/{product.sku}/fits"
+        )
+    return found.id, fit_cache.get(session, found.id, found.created_at)
 
 
 def get_or_raise(session: Session, *, product: ProductRow, fit_id: int) -> FitRow:

@@ -201,3 +201,20 @@ def test_linear_demand_that_reaches_zero() -> None:
     assert result.recommended.price >= 50.0
     assert "no_expected_demand" in codes(result)
     json.dumps(result.to_dict(), allow_nan=False)
+
+
+@pytest.mark.parametrize("cost", [18.0, 19.5, 19.9])
+def test_narrow_profitable_window_of_linear_demand_is_found(cost: float) -> None:
+    # q = 2000 - 100 p sells nothing above 20; with cost c the profit (p - c)(2000 - 100 p)
+    # peaks at (20 + c)/2 (Pindyck & Rubinfeld, ch. 10, MR = MC). The window (c, 20) is
+    # narrow next to the open search range an extrapolating request allows.
+    prices = np.linspace(8.0, 16.0, 40)
+    fit = exact_fit("LIN", "linear", prices, 2000.0 - 100.0 * prices)
+    result = optimal_price(
+        fit,
+        unit_cost=cost,
+        current_price=12.0,
+        constraints=PriceConstraints(allow_extrapolation=True),
+    )
+    assert result.recommended.price == pytest.approx((20.0 + cost) / 2, rel=1e-9)
+    assert result.unconstrained_price == pytest.approx((20.0 + cost) / 2, rel=1e-9)

@@ -33,6 +33,7 @@ from models.pricing.solve1d import (
     SEARCH_SPAN,
     Unconstrained,
     at_bound,
+    hints,
     maximise,
     unconstrained,
 )
@@ -269,7 +270,7 @@ def optimal_price(
     )
     reference = current_price or math.sqrt(fit.price_range[0] * fit.price_range[1])
     search = _search(iv, reference)
-    best = maximise(curve, cost, search.low, search.high)
+    best = maximise(curve, cost, search.low, search.high, extra=hints(curve, cost, reference))
     _check_bounded(curve, cost, best.price, search, objective)
     free = unconstrained(curve, cost, reference)
 

@@ -26,6 +26,7 @@ GRID_POINTS: Final = 25
 SEARCH_SPAN: Final = 1e4
 """The unconstrained search runs from price/1e4 to price*1e4 around a reference price."""
 SEARCH_POINTS: Final = 97
+HINT_POINTS: Final = 97
 BISECTIONS: Final = 64
 _T_GRID: Final = np.linspace(0.0, 1.0, GRID_POINTS)
 _T_SEARCH: Final = np.linspace(0.0, 1.0, SEARCH_POINTS)
@@ -46,13 +47,40 @@ def _geometric(low: float, high: float, t: FloatArray) -> FloatArray:
     return grid
 
 
+def hints(curve: DemandCurve, cost: float, reference: float) -> FloatArray:
+    """Extra grid points where the optimum usually is: around the reference price, and,
+    for linear demand, between the cost and the price at which demand reaches zero.
+
+    A coarse geometric grid over a wide interval can step right over a narrow
+    profitable window (linear demand with a cost close to its zero-demand price),
+    leaving only flat zero-profit points to choose from.
+    """
+    points = [np.linspace(reference / 3.0, reference * 3.0, HINT_POINTS)]
+    if curve.linear and not isinstance(curve.coef, np.ndarray):
+        choke = float(curve.price_for_units(0.0))
+        start = max(cost, 0.0)
+        if math.isfinite(choke) and choke > start:
+            points.append(np.linspace(start, choke, HINT_POINTS)[1:-1])
+    return np.concatenate(points)
+
+
 def maximise(
-    curve: DemandCurve, cost: float, low: float, high: float, *, t: FloatArray = _T_GRID
+    curve: DemandCurve,
+    cost: float,
+    low: float,
+    high: float,
+    *,
+    t: FloatArray = _T_GRID,
+    extra: FloatArray | None = None,
 ) -> Solution1D:
-    """Maximise ``(price - cost) * units`` on ``[low, high]`` (``0 < low <= high < inf``)."""
+    """Maximise ``(price - cost) * units`` on ``[low, high]`` (``0 < low <= high < inf``);
+    ``extra`` adds candidate points (see :func:`hints`) to the coarse grid."""
     if not high > low:
         return Solution1D(low, curve.objective_at(low, cost), 0)
     grid = _geometric(low, high, t)
+    if extra is not None:
+        inside = extra[(extra > low) & (extra < high)]
+        grid = np.union1d(grid, inside)
     values = curve.objective(grid, cost)
     i = int(np.argmax(values))
     best = Solution1D(float(grid[i]), float(values[i]), 0)
@@ -89,7 +117,7 @@ def unconstrained(curve: DemandCurve, cost: float, reference: float) -> Unconstr
     """Maximise over ``[reference / 1e4, reference * 1e4]``; an optimum still pressing
     against either end (the objective improving past it) counts as unbounded."""
     low, high = reference / SEARCH_SPAN, reference * SEARCH_SPAN
-    found = maximise(curve, cost, low, high, t=_T_SEARCH)
+    found = maximise(curve, cost, low, high, t=_T_SEARCH, extra=hints(curve, cost, reference))
     if found.price >= high * (1.0 - 1e-12) and curve.marginal_at(high, cost) > 0.0:
         return Unconstrained(None, "above")
     if found.price <= low * (1.0 + 1e-12) and curve.marginal_at(low, cost) < 0.0:

@@ -142,8 +142,7 @@ def get_elasticities(
     ] = None,
 ) -> ElasticitiesOut:
     product = products.get_or_raise(session, sku=sku)
-    row = fits.active_or_raise(session, product=product)
-    fit = fits.restore(row)
+    fit_id, fit = fits.active_fit(session, product)
     point = _parse_at(at)
     known = set(fit.variable_means)
     unknown = sorted(set(point) - known) if isinstance(point, dict) else []
@@ -168,7 +167,7 @@ def get_elasticities(
         warnings.append({"code": w.code, "message": w.message})
     return ElasticitiesOut(
         sku=sku,
-        fit_id=row.id,
+        fit_id=fit_id,
         form=body["form"],
         at=body["at"],
         point=body["point"],
@@ -189,8 +188,7 @@ def get_elasticities(
 )
 def predict(sku: SkuPath, body: PredictRequest, session: ReadSession) -> PredictionOut:
     product = products.get_or_raise(session, sku=sku)
-    row = fits.active_or_raise(session, product=product)
-    fit = fits.restore(row)
+    fit_id, fit = fits.active_fit(session, product)
     unknown = [f"covariates.{n}" for n in body.covariates if n not in fit.variable_means]
     unknown += [f"cross_prices.{s}" for s in body.cross_prices if s not in fit.variable_means]
     if unknown:
@@ -219,4 +217,4 @@ def predict(sku: SkuPath, body: PredictRequest, session: ReadSession) -> Predict
     warnings = []
     if (w := price_range_warning(fit, body.price)) is not None:
         warnings.append({"code": w.code, "message": w.message})
-    return PredictionOut(**result.to_dict(), fit_id=row.id, warnings=warnings)
+    return PredictionOut(**result.to_dict(), fit_id=fit_id, warnings=warnings)

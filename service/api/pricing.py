@@ -1,0 +1,114 @@
+"""Recommended prices: one product, a whole family, and the latest ones for back ends."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Annotated
+
+from fastapi import APIRouter, Path, Query
+
+from service import pricing
+from service.api.docs import problems
+from service.api.products import SkuPath
+from service.deps import READ, ReadSession, WriteSession
+from service.pagination import decode_cursor, encode_cursor
+from service.schemas import (
+    SKU_PATTERN,
+    FamilyPriceRequest,
+    FamilyRecommendationOut,
+    OptimalPriceRequest,
+    Page,
+    RecommendationOut,
+)
+from service.tables import as_utc
+
+router = APIRouter(tags=["prices"])
+
+CAUTION = (
+    " Recommendations are estimates from past data, not instructions: have a person or a "
+    "written policy approve prices before they go live, and check them against the pricing "
+    "rules of your jurisdiction (emergency price caps, below-cost sales, reference prices, "
+    "competition law)."
+)
+
+
+@router.post(
+    "/v1/products/{sku}/optimal-price",
+    response_model=RecommendationOut,
+    response_model_exclude_none=False,
+    dependencies=[READ],
+    operation_id="optimal_price",
+    summary="Recommend the revenue- or profit-maximising price under business rules",
+    description=(
+        "Uses the product's active fit. Prices stay within the observed range widened by "
+        "10% unless `allow_extrapolation` is set; any price outside the observed range is "
+        "warned. A fit whose own-price effect has the wrong sign is refused with 409 unless "
+        "`force`." + CAUTION
+    ),
+    responses=problems(404, 409, 422),
+)
+def optimal_price(
+    sku: SkuPath, body: OptimalPriceRequest, session: WriteSession
+) -> RecommendationOut:
+    row, result = pricing.recommend(session, sku=sku, body=body)
+    return RecommendationOut(**pricing.with_record(row, sku, result))
+
+
+@router.post(
+    "/v1/families/{family}/optimal-prices",
+    response_model=FamilyRecommendationOut,
+    dependencies=[READ],
+    operation_id="family_optimal_prices",
+    summary="Recommend joint prices for a family, with cross-price effects and ladder rules",
+    description=(
+        "Maximises the family's total revenue or profit over the prices of its products "
+        "that have an active fit (the others are listed in `excluded`)." + CAUTION
+    ),
+    responses=problems(404, 409, 422),
+)
+def family_optimal_prices(
+    family: Annotated[str, Path(pattern=SKU_PATTERN)],
+    body: FamilyPriceRequest,
+    session: WriteSession,
+) -> FamilyRecommendationOut:
+    return FamilyRecommendationOut(**pricing.recommend_family(session, family=family, body=body))
+
+
+@router.get(
+    "/v1/recommendations",
+    response_model=Page[RecommendationOut],
+    dependencies=[READ],
+    operation_id="list_recommendations",
+    summary="The latest recommendation of each product, for back ends that pull nightly",
+    responses=problems(422),
+)
+def list_recommendations(
+    session: ReadSession,
+    family: Annotated[str | None, Query(pattern=SKU_PATTERN)] = None,
+    since: Annotated[
+        dt.datetime | None,
+        Query(description="Only recommendations made at or after this time (ISO 8601)"),
+    ] = None,
+    limit: Annotated[int, Query(ge=1, le=500)] = 100,
+    cursor: Annotated[
+        str | None, Query(description="From `next_cursor` of the previous page")
+    ] = None,
+) -> Page[RecommendationOut]:
+    position = decode_cursor(cursor)
+    after = str(position["after"]) if position and "after" in position else None
+    since_utc = as_utc(since) if since is not None else None
+    rows, more = pricing.latest_page(
+        session, family=family, since=since_utc, limit=limit, after_sku=after
+    )
+    items = [
+        RecommendationOut(
+            **{
+                **pricing.with_record(row, sku, row.result),
+                "curve": None,
+                "created_at": as_utc(row.created_at),
+            }
+        )
+        for row, sku in rows
+    ]
+    next_cursor = encode_cursor({"after": rows[-1][1]}) if more and rows else None
+    return Page[RecommendationOut](items=items, next_cursor=next_cursor)

@@ -1,0 +1,266 @@
+"""Recommendations: optimal prices for one product or a family, stored for nightly pulls.
+
+The numbers come from `models.pricing`; this module finds the active fits, fills
+defaults from the catalogue, turns pricing errors into HTTP problems and stores every
+recommendation it gives.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from models import DemandFit
+from models.pricing import (
+    InfeasibleConstraintsError,
+    InvalidConstraintsError,
+    MissingUnitCostError,
+    PriceConstraints,
+    PricingInputError,
+    WrongSignError,
+    optimal_family_prices,
+    optimal_price,
+)
+from service import products
+from service.errors import Conflict, ErrorItem, InvalidInput, NotFound
+from service.fits import active_fit
+from service.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
+from service.tables import ProductRow, RecommendationRow, utcnow
+
+
+def price_constraints(product: ProductRow, rules: ConstraintsIn) -> PriceConstraints:
+    """Request rules, with the product's own price bounds where the request has none."""
+    values = rules.model_dump()
+    values["min_price"] = (
+        values["min_price"] if values["min_price"] is not None else (product.min_price)
+    )
+    values["max_price"] = (
+        values["max_price"] if values["max_price"] is not None else (product.max_price)
+    )
+    values["price_endings"] = tuple(values["price_endings"])
+    try:
+        return PriceConstraints(**values)
+    except InvalidConstraintsError as exc:
+        raise _invalid(exc) from None
+
+
+def current_price(product: ProductRow, fit: DemandFit, given: float | None) -> float | None:
+    if given is not None:
+        return given
+    if product.current_price is not None:
+        return product.current_price
+    return fit.variable_latest.get("price")
+
+
+def _check_scenario(fit: DemandFit, scenario: dict[str, Any], prefix: str = "scenario") -> None:
+    known = set(fit.variable_means) - {"price"}
+    unknown = sorted(set(scenario) - known)
+    if unknown:
+        raise InvalidInput(
+            "the scenario names variables the fit does not have",
+            errors=[
+                ErrorItem(
+                    field=f"{prefix}.{name}",
+                    message=f"not a variable of the fit; known: {sorted(known)}",
+                )
+                for name in unknown
+            ],
+        )
+
+
+def _invalid(exc: PricingInputError) -> InvalidInput:
+    if isinstance(exc, InfeasibleConstraintsError):
+        return InvalidInput(
+            f"no price satisfies every constraint: {exc}",
+            errors=[
+                ErrorItem(field=f"constraints.{name}", message="conflicts with the others")
+                for name in exc.constraints
+            ],
+        )
+    if isinstance(exc, InvalidConstraintsError):
+        return InvalidInput(
+            "the constraints are invalid",
+            errors=[
+                ErrorItem(field=f"constraints.{name}", message=message)
+                for name, message in exc.problems
+            ],
+        )
+    if isinstance(exc, MissingUnitCostError):
+        return InvalidInput(str(exc), errors=[ErrorItem(field="unit_cost", message=str(exc))])
+    return InvalidInput(str(exc), errors=[ErrorItem(field="body", message=str(exc))])
+
+
+def _conflict(exc: WrongSignError) -> Conflict:
+    return Conflict(f'{exc.reason} Refusing to optimise; send "force": true to optimise anyway.')
+
+
+def recommend(
+    session: Session, *, sku: str, body: OptimalPriceRequest
+) -> tuple[RecommendationRow, dict[str, Any]]:
+    """One product's recommendation, stored."""
+    product = products.get_or_raise(session, sku=sku)
+    fit_id, fit = active_fit(session, product)
+    _check_scenario(fit, body.scenario)
+    try:
+        result = optimal_price(
+            fit,
+            objective=body.objective,
+            unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
+            current_price=current_price(product, fit, body.current_price),
+            constraints=price_constraints(product, body.constraints),
+            scenario=body.scenario,
+            uncertainty_draws=body.uncertainty_draws,
+            seed=body.seed,
+            curve_points=body.curve_points,
+            force=body.force,
+        )
+    except WrongSignError as exc:
+        raise _conflict(exc) from None
+    except PricingInputError as exc:
+        raise _invalid(exc) from None
+    data = result.to_dict()
+    row = _store(
+        session,
+        product_id=product.id,
+        fit_id=fit_id,
+        objective=body.objective,
+        request=body.model_dump(),
+        result=data,
+    )
+    return row, data
+
+
+def _store(
+    session: Session,
+    *,
+    product_id: int,
+    fit_id: int,
+    objective: str,
+    request: dict[str, Any],
+    result: dict[str, Any],
+) -> RecommendationRow:
+    row = RecommendationRow(
+        product_id=product_id,
+        fit_id=fit_id,
+        objective=objective,
+        request=request,
+        result=result,
+        created_at=utcnow(),
+    )
+    session.add(row)
+    session.flush()
+    return row
+
+
+def recommend_family(session: Session, *, family: str, body: FamilyPriceRequest) -> dict[str, Any]:
+    """Joint prices for the products of a family that have an active fit, stored."""
+    members = list(
+        session.scalars(
+            select(ProductRow).where(ProductRow.family == family).order_by(ProductRow.sku)
+        )
+    )
+    if not members:
+        raise NotFound(f"no products in family {family!r}")
+    unknown = sorted(set(body.product_constraints) - {m.sku for m in members})
+    unknown += sorted({s for pair in body.order for s in pair} - {m.sku for m in members})
+    if unknown:
+        raise InvalidInput(
+            "rules name products outside the family",
+            errors=[
+                ErrorItem(field="product_constraints", message=f"{s!r} is not in {family!r}")
+                for s in unknown
+            ],
+        )
+    fits: dict[str, DemandFit] = {}
+    fit_ids: dict[str, int] = {}
+    excluded = []
+    for member in members:
+        try:
+            fit_ids[member.sku], fits[member.sku] = active_fit(session, member)
+        except NotFound:
+            excluded.append({"sku": member.sku, "reason": "no active fit"})
+    if not fits:
+        raise Conflict(f"no product of family {family!r} has an active fit to price with")
+    by_sku = {m.sku: m for m in members}
+    for sku, fit in fits.items():
+        shared = {k: v for k, v in body.scenario.items() if not isinstance(v, dict)}
+        own = body.scenario.get(sku, {})
+        _check_scenario(
+            fit,
+            {k: v for k, v in shared.items() if k in fit.variable_means}
+            | (own if isinstance(own, dict) else {}),
+            prefix=f"scenario.{sku}",
+        )
+    order = [(a, b) for a, b in body.order if a in fits and b in fits]
+    try:
+        result = optimal_family_prices(
+            fits,
+            objective=body.objective,
+            unit_costs={s: by_sku[s].unit_cost for s in fits},
+            current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
+            constraints={
+                s: price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints))
+                for s in fits
+            },
+            order=order,
+            max_total_change_pct=body.max_total_change_pct,
+            scenario=body.scenario,
+            uncertainty_draws=body.uncertainty_draws,
+            seed=body.seed,
+            force=body.force,
+        )
+    except WrongSignError as exc:
+        raise _conflict(exc) from None
+    except PricingInputError as exc:
+        raise _invalid(exc) from None
+    data = result.to_dict()
+    request = body.model_dump()
+    stored = []
+    for item in data["products"]:
+        row = _store(
+            session,
+            product_id=by_sku[item["sku"]].id,
+            fit_id=fit_ids[item["sku"]],
+            objective=body.objective,
+            request={"family": family, **request},
+            result=item,
+        )
+        stored.append(with_record(row, by_sku[item["sku"]].sku, item))
+    return {**data, "family": family, "products": stored, "excluded": excluded}
+
+
+def with_record(row: RecommendationRow, sku: str, result: dict[str, Any]) -> dict[str, Any]:
+    return {**result, "id": row.id, "sku": sku, "fit_id": row.fit_id, "created_at": row.created_at}
+
+
+def latest_page(
+    session: Session,
+    *,
+    family: str | None,
+    since: dt.datetime | None,
+    limit: int,
+    after_sku: str | None,
+) -> tuple[list[tuple[RecommendationRow, str]], bool]:
+    """The newest recommendation of each product, by sku."""
+    newest = select(func.max(RecommendationRow.id).label("id")).group_by(
+        RecommendationRow.product_id
+    )
+    if since is not None:
+        newest = newest.where(RecommendationRow.created_at >= since)
+    ids = newest.subquery()
+    query = (
+        select(RecommendationRow, ProductRow.sku)
+        .join(ids, ids.c.id == RecommendationRow.id)
+        .join(ProductRow, ProductRow.id == RecommendationRow.product_id)
+        .order_by(ProductRow.sku)
+        .limit(limit + 1)
+    )
+    if family is not None:
+        query = query.where(ProductRow.family == family)
+    if after_sku is not None:
+        query = query.where(ProductRow.sku > after_sku)
+    rows = [(r, s) for r, s in session.execute(query).all()]
+    return rows[:limit], len(rows) > limit
