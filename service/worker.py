@@ -15,6 +15,7 @@ from sqlalchemy import Engine
 from service import jobs, metrics
 from service.db import make_session_factory, session_scope
 from service.refit import run_refit
+from service.reprice import run_reprice
 from service.settings import Settings
 
 logger = logging.getLogger("marginal.jobs")
@@ -49,6 +50,13 @@ class JobRunner:
         try:
             if kind == "refit":
                 progress = run_refit(
+                    (self.reads, self.writes),
+                    job_id=job_id,
+                    settings=self.settings,
+                    on_progress=on_progress,
+                )
+            elif kind == "reprice":
+                progress = run_reprice(
                     (self.reads, self.writes),
                     job_id=job_id,
                     settings=self.settings,

@@ -232,3 +232,50 @@ def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
         ).scalar_one()
     engine.dispose()
     assert newer >= 4  # the batches committed before the kill were kept
+
+
+def test_reprice_job_recommends_once_per_active_product(
+    shop: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
+    run_queued(db.settings)
+    active = {sku for sku, n in active_fits(db.settings).items() if n}
+    created = shop.post(
+        "/v1/jobs",
+        json={
+            "kind": "reprice",
+            "scope": "all",
+            "request": {"objective": "profit", "constraints": {"max_change_pct": 10}},
+        },
+        headers=headers,
+    )
+    assert created.status_code == 202
+    [job_id] = run_queued(db.settings)
+    job = shop.get(f"/v1/jobs/{job_id}", headers=headers).json()
+    assert job["status"] == "succeeded"
+    assert job["counts"]["recommended"] + job["counts"]["failed"] == len(active)
+    assert job["counts"]["skipped"] == 40 - len(active)
+    latest = shop.get("/v1/recommendations", params={"limit": 500}, headers=headers).json()["items"]
+    assert len(latest) == job["counts"]["recommended"] >= len(active) - 2
+    assert {r["sku"] for r in latest} <= active
+    for item in latest:
+        change = abs(item["recommended"]["price"] / item["current"]["price"] - 1)
+        assert change <= 0.10 + 1e-9
+
+
+@pytest.mark.parametrize(
+    "body",
+    [
+        {"kind": "reprice", "request": {"objective": "margin"}},
+        {"kind": "reprice", "request": {"constraints": {"max_change_pct": -1}}},
+        {"kind": "refit", "spec": {"form": "cubic"}},
+    ],
+)
+def test_job_options_are_checked_before_queueing(
+    shop: TestClient, headers: dict[str, str], db: Database, body: dict[str, object]
+) -> None:
+    from tests.conftest import row_count
+
+    response = shop.post("/v1/jobs", json=body, headers=headers)
+    assert response.status_code == 422
+    assert row_count(db.settings, "jobs") == 0

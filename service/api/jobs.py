@@ -5,13 +5,23 @@ from __future__ import annotations
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, Response, status
+from pydantic import ValidationError
 
-from service import jobs, schedules
+from service import fits, jobs, schedules
 from service.api.docs import problems
 from service.deps import ADMIN, READ, WRITE, ReadSession, WriteSession
+from service.errors import ErrorItem, InvalidInput
 from service.mapping import job_out, schedule_out
 from service.pagination import decode_cursor, encode_cursor
-from service.schemas import JobIn, JobOut, JobStatus, Page, ScheduleIn, ScheduleOut
+from service.schemas import (
+    JobIn,
+    JobOut,
+    JobStatus,
+    OptimalPriceRequest,
+    Page,
+    ScheduleIn,
+    ScheduleOut,
+)
 from service.tables import ScheduleRow, utcnow
 
 router = APIRouter(tags=["jobs"])
@@ -30,6 +40,7 @@ NamePath = Annotated[str, Path(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")]
 def create_job(body: JobIn, session: WriteSession) -> JobOut:
     """The job runs in the background (the service's worker or `marginal worker`); poll
     `GET /v1/jobs/{id}` for its progress."""
+    check_job_options(body)
     scope = body.scope if isinstance(body.scope, str) else body.scope.model_dump()
     row = jobs.create(
         session, kind=body.kind, scope=scope, force=body.force, spec=body.spec, request=body.request
@@ -70,6 +81,26 @@ def list_jobs(
     rows, more = jobs.list_page(session, limit=limit, before_id=before, status=status_filter)
     next_cursor = encode_cursor({"before": rows[-1].id}) if more and rows else None
     return Page[JobOut](items=[job_out(r) for r in rows], next_cursor=next_cursor)
+
+
+def check_job_options(body: JobIn, prefix: str = "") -> None:
+    """A reprice job's request and a refit job's spec are checked before queueing."""
+    if body.kind == "reprice" and body.request is not None:
+        try:
+            OptimalPriceRequest.model_validate(body.request)
+        except ValidationError as exc:
+            raise InvalidInput(
+                "the reprice request is invalid",
+                errors=[
+                    ErrorItem(
+                        field=f"{prefix}request." + ".".join(str(p) for p in e["loc"]),
+                        message=e["msg"],
+                    )
+                    for e in exc.errors()
+                ],
+            ) from None
+    if body.kind == "refit" and body.spec is not None:
+        fits.parse_spec(body.spec, field_prefix=f"{prefix}spec")
 
 
 def _schedule_out(session: ReadSession | WriteSession, row: ScheduleRow) -> ScheduleOut:
@@ -115,6 +146,7 @@ def put_schedule(
 ) -> ScheduleOut:
     """Each cron slot starts one job, however many replicas run. A slot missed while no
     service was running is run once at the next start (only the most recent one)."""
+    check_job_options(body.job, prefix="job.")
     fields = body.model_dump()
     fields["job"] = body.job.model_dump(exclude_none=True)
     row, created = schedules.put(session, name=name, fields=fields)

@@ -1,0 +1,107 @@
+"""The reprice job: one stored recommendation per product with an active fit in scope."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import insert, select
+from sqlalchemy.orm import Session, sessionmaker
+
+from models.pricing import PricingInputError, WrongSignError, optimal_price
+from service import jobs
+from service.db import session_scope
+from service.fits import ACTIVE, fit_cache
+from service.pricing import current_price, price_constraints
+from service.refit import scope_filter
+from service.schemas import OptimalPriceRequest
+from service.settings import Settings
+from service.tables import FitRow, ProductRow, RecommendationRow, utcnow
+
+
+def run_reprice(
+    factories: tuple[sessionmaker[Session], sessionmaker[Session]],
+    *,
+    job_id: int,
+    settings: Settings,
+    on_progress: jobs.ProgressCallback | None = None,
+) -> jobs.Progress:
+    reads, writes = factories
+    progress = jobs.Progress()
+    progress.counts["recommended"] = 0
+    with session_scope(reads) as session:
+        job = jobs.get_or_raise(session, job_id=job_id)
+        request = OptimalPriceRequest.model_validate((job.options or {}).get("request") or {})
+        rows = session.execute(
+            select(ProductRow, FitRow.id, FitRow.created_at)
+            .outerjoin(FitRow, (FitRow.product_id == ProductRow.id) & (FitRow.status == ACTIVE))
+            .where(scope_filter(job.scope))
+            .order_by(ProductRow.sku)
+        ).all()
+        products = [(row[0], row[1], row[2]) for row in rows]
+        for product, _, _ in products:
+            session.expunge(product)
+    found = {p.sku for p, _, _ in products}
+    for sku in job.scope.get("skus", []):
+        if sku not in found:
+            progress.total += 1
+            progress.done += 1
+            progress.counts["failed"] += 1
+            progress.add_error(sku, "no such product")
+    progress.total += len(products)
+    size = settings.job_batch_size
+    for start in range(0, len(products), size):
+        batch = products[start : start + size]
+        records: list[dict[str, Any]] = []
+        with session_scope(reads) as session:
+            for product, fit_id, created_at in batch:
+                if fit_id is None:
+                    progress.counts["skipped"] += 1
+                    progress.add_error(product.sku, "skipped: no active fit")
+                    continue
+                fit = fit_cache.get(session, fit_id, created_at)
+                try:
+                    result = optimal_price(
+                        fit,
+                        objective=request.objective,
+                        unit_cost=(
+                            request.unit_cost
+                            if request.unit_cost is not None
+                            else product.unit_cost
+                        ),
+                        current_price=current_price(product, fit, request.current_price),
+                        constraints=price_constraints(product, request.constraints),
+                        scenario={
+                            k: v for k, v in request.scenario.items() if k in fit.variable_means
+                        },
+                        uncertainty_draws=request.uncertainty_draws,
+                        seed=request.seed,
+                        curve_points=request.curve_points,
+                        force=request.force,
+                    )
+                except WrongSignError as exc:
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, f"refused: {exc.reason}")
+                    continue
+                except (PricingInputError, ValueError) as exc:
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, str(exc))
+                    continue
+                progress.counts["recommended"] += 1
+                records.append(
+                    {
+                        "product_id": product.id,
+                        "fit_id": fit_id,
+                        "objective": request.objective,
+                        "request": {"job_id": job_id, **request.model_dump()},
+                        "result": result.to_dict(),
+                        "created_at": utcnow(),
+                    }
+                )
+        with session_scope(writes) as session:
+            if records:
+                session.execute(insert(RecommendationRow), records)
+            progress.done += len(batch)
+            jobs.save_progress(session, job_id=job_id, progress=progress)
+        if on_progress:
+            on_progress(progress)
+    return progress
