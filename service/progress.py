@@ -5,6 +5,7 @@ On a terminal: a tqdm progress bar. Elsewhere (cron, CI logs): a plain line ever
 
 from __future__ import annotations
 
+import shutil
 import sys
 from collections.abc import Sequence
 from types import TracebackType
@@ -26,7 +27,10 @@ class JobProgressDisplay:
 
     def __enter__(self) -> JobProgressDisplay:
         if self.interactive:
-            self.bar = tqdm(total=0, desc=self.title, unit="product", file=self.stream)
+            # Some pseudo-terminals report a 0 x 0 screen, on which tqdm draws nothing.
+            size = shutil.get_terminal_size(fallback=(100, 24))
+            self.bar = tqdm(total=0, desc=self.title, unit="product", file=self.stream,
+                            ncols=size.columns, nrows=size.lines)
         else:
             print(f"{self.title}: started", file=self.stream, flush=True)
         return self
