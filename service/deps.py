@@ -42,20 +42,22 @@ WriteSession = Annotated[Session, Depends(write_session)]
 
 def _caller(
     request: Request,
+    session: ReadSession,
     authorization: Annotated[str | None, Header(include_in_schema=False)] = None,
 ) -> Principal:
-    with session_scope(_factory(request, "read_sessions")) as session:
-        principal, stale = auth.authenticate(session, authorization)
+    # The read session is the request's own (FastAPI reuses it for the route).
+    principal, stale = auth.authenticate(session, authorization)
     if stale:
-        with session_scope(_factory(request, "write_sessions")) as session:
-            auth.touch_key(session, key_id=principal.key_id)
+        with session_scope(_factory(request, "write_sessions")) as writer:
+            auth.touch_key(writer, key_id=principal.key_id)
     request.state.key_id = principal.key_id
     return principal
 
 
 def check_scope(request: Request, authorization: str | None, scope: Scope) -> Principal:
     """The same check as :func:`requires`, for routes that decide at run time."""
-    principal = _caller(request, authorization)
+    with session_scope(_factory(request, "read_sessions")) as session:
+        principal = _caller(request, session, authorization)
     auth.require(principal, scope)
     return principal
 

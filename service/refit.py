@@ -192,7 +192,7 @@ def _record(
     for candidate, result in zip(batch, results, strict=True):
         if isinstance(result, FitFailure):
             progress.counts["failed"] += 1
-            progress.add_error(candidate.sku, result.reason)
+            progress.add_error(candidate.sku, result.reason.removeprefix(f"{candidate.sku}: "))
             continue
         previous = active.get(candidate.id)
         gates = quality_gates(result, previous[1] if previous else None, settings)
