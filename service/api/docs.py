@@ -7,7 +7,7 @@ from typing import Any
 from service.schemas import Problem
 
 _DESCRIPTIONS = {
-    400: "Bad request",
+    400: "The body could not be parsed (malformed JSON)",
     401: "No API key, or an unknown or revoked one",
     403: "The API key lacks the required scope",
     404: "The resource does not exist",
@@ -21,7 +21,7 @@ _DESCRIPTIONS = {
 
 def problems(*codes: int) -> dict[int | str, dict[str, Any]]:
     """OpenAPI `responses` entries for the given error statuses (auth ones always included)."""
-    wanted = sorted({401, 403, 503, *codes})
+    wanted = sorted({400, 401, 403, 503, *codes})
     return {
         code: {
             "model": Problem,

@@ -14,7 +14,7 @@ from service.api.products import SkuPath
 from service.deps import READ, WRITE, ReadSession, SettingsDep, WriteSession
 from service.errors import ErrorItem, InvalidInput
 from service.mapping import fit_out, fit_summary
-from service.pagination import decode_cursor, encode_cursor
+from service.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.schemas import (
     ElasticitiesOut,
     FitOut,
@@ -67,7 +67,7 @@ def list_fits(
 ) -> Page[FitSummary]:
     product = products.get_or_raise(session, sku=sku)
     position = decode_cursor(cursor)
-    before = int(position["before"]) if position and "before" in position else None
+    before = cursor_int(position, "before")
     rows, more = fits.list_page(session, product_id=product.id, limit=limit, before_version=before)
     next_cursor = encode_cursor({"before": rows[-1].version}) if more and rows else None
     return Page[FitSummary](items=[fit_summary(r, sku) for r in rows], next_cursor=next_cursor)
@@ -81,7 +81,9 @@ def list_fits(
     summary="Read one fit version",
     responses=problems(404, 422),
 )
-def get_fit(sku: SkuPath, fit_id: Annotated[int, Path(ge=1)], session: ReadSession) -> FitOut:
+def get_fit(
+    sku: SkuPath, fit_id: Annotated[int, Path(ge=1, le=MAX_ID)], session: ReadSession
+) -> FitOut:
     product = products.get_or_raise(session, sku=sku)
     return fit_out(fits.get_or_raise(session, product=product, fit_id=fit_id), sku)
 

@@ -12,7 +12,7 @@ from service.api.docs import problems
 from service.deps import ADMIN, READ, WRITE, ReadSession, WriteSession
 from service.errors import ErrorItem, InvalidInput
 from service.mapping import job_out, schedule_out
-from service.pagination import decode_cursor, encode_cursor
+from service.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.schemas import (
     JobIn,
     JobOut,
@@ -56,7 +56,7 @@ def create_job(body: JobIn, session: WriteSession) -> JobOut:
     summary="A job's status, progress, counts and per-product errors",
     responses=problems(404, 422),
 )
-def get_job(job_id: Annotated[int, Path(ge=1)], session: ReadSession) -> JobOut:
+def get_job(job_id: Annotated[int, Path(ge=1, le=MAX_ID)], session: ReadSession) -> JobOut:
     return job_out(jobs.get_or_raise(session, job_id=job_id))
 
 
@@ -77,7 +77,7 @@ def list_jobs(
     ] = None,
 ) -> Page[JobOut]:
     position = decode_cursor(cursor)
-    before = int(position["before"]) if position and "before" in position else None
+    before = cursor_int(position, "before")
     rows, more = jobs.list_page(session, limit=limit, before_id=before, status=status_filter)
     next_cursor = encode_cursor({"before": rows[-1].id}) if more and rows else None
     return Page[JobOut](items=[job_out(r) for r in rows], next_cursor=next_cursor)
@@ -139,7 +139,7 @@ def get_schedule(name: NamePath, session: ReadSession) -> ScheduleOut:
     dependencies=[ADMIN],
     operation_id="put_schedule",
     summary="Create or replace a schedule",
-    responses=problems(422),
+    responses={201: {"model": ScheduleOut, "description": "Created"}, **problems(422)},
 )
 def put_schedule(
     name: NamePath, body: ScheduleIn, session: WriteSession, response: Response

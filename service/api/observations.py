@@ -12,7 +12,7 @@ from service.api.docs import problems
 from service.api.products import SkuPath
 from service.deps import READ, WRITE, ReadSession, WriteSession
 from service.mapping import observation_out
-from service.pagination import decode_cursor, encode_cursor
+from service.pagination import cursor_date, decode_cursor, encode_cursor
 from service.schemas import ObservationBatch, ObservationOut, Page, UpsertCounts
 
 router = APIRouter(prefix="/v1/products/{sku}/observations", tags=["observations"])
@@ -55,9 +55,7 @@ def list_observations(
 ) -> Page[ObservationOut]:
     product = products.get_or_raise(session, sku=sku)
     position = decode_cursor(cursor)
-    after = (
-        dt.date.fromisoformat(str(position["after"])) if position and "after" in position else None
-    )
+    after = cursor_date(position, "after")
     rows, more = observations.list_range(
         session, product_id=product.id, start=start, end=end, limit=limit, after=after
     )

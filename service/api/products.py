@@ -23,7 +23,7 @@ SkuPath = Annotated[str, Path(pattern=SKU_PATTERN, description="The product's sk
     dependencies=[WRITE],
     operation_id="put_product",
     summary="Create or replace a product",
-    responses=problems(422),
+    responses={201: {"model": ProductOut, "description": "Created"}, **problems(422)},
     status_code=status.HTTP_200_OK,
 )
 def put_product(
