@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 import schemathesis
-from schemathesis import GenerationMode
 from fastapi import FastAPI
 from hypothesis import HealthCheck, given, settings
 from hypothesis.errors import Unsatisfiable
+from schemathesis import GenerationMode
 from schemathesis.specs.openapi.checks import positive_data_acceptance
 
 from service import demo, migrate
@@ -50,7 +50,9 @@ def fuzz_target(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[Fast
     yield app, key
 
 
-def problem_json_errors(ctx: object, response: schemathesis.Response, case: schemathesis.Case) -> None:
+def problem_json_errors(
+    ctx: object, response: schemathesis.Response, case: schemathesis.Case
+) -> None:
     """Every refusal is application/problem+json."""
     if response.status_code >= 400:
         value = response.headers.get("content-type", [""])
@@ -72,8 +74,12 @@ def test_every_operation(fuzz_target: tuple[FastAPI, str]) -> None:
         operations += mode is GenerationMode.POSITIVE
 
         @given(case=operation.as_strategy(generation_mode=mode))
-        @settings(max_examples=EXAMPLES, deadline=None, database=None,
-                  suppress_health_check=list(HealthCheck))
+        @settings(
+            max_examples=EXAMPLES,
+            deadline=None,
+            database=None,
+            suppress_health_check=list(HealthCheck),
+        )
         def run(case: schemathesis.Case) -> None:
             response = case.call_and_validate(
                 headers={"Authorization": f"Bearer {key}"},
@@ -89,7 +95,8 @@ def test_every_operation(fuzz_target: tuple[FastAPI, str]) -> None:
         except Unsatisfiable:
             continue  # nothing to make invalid: no parameters and no body
         except BaseException as exc:  # collect every operation's failure, report them all
-            failures.append(f"{operation.label} ({mode.value}): {type(exc).__name__}: "
-                            f"{str(exc)[:2000]}")
+            failures.append(
+                f"{operation.label} ({mode.value}): {type(exc).__name__}: {str(exc)[:2000]}"
+            )
     assert operations >= 25
     assert not failures, "\n\n".join(failures)
