@@ -10,6 +10,7 @@ from collections.abc import AsyncIterator, Awaitable, Callable
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI, Request, Response
+from fastapi.middleware.cors import CORSMiddleware
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError, SQLAlchemyError
 
@@ -73,6 +74,15 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         default_limit=settings.body_limit_bytes,
         import_limit=settings.import_limit_bytes,
     )
+    if settings.cors_origins:
+        # Off unless configured: browsers then refuse cross-origin calls by default.
+        app.add_middleware(
+            CORSMiddleware,
+            allow_origins=settings.cors_origins,
+            allow_methods=["GET", "POST", "PUT", "PATCH", "DELETE"],
+            allow_headers=["Authorization", "Content-Type", "X-Request-ID"],
+            expose_headers=["X-Request-ID", "Retry-After", "ETag"],
+        )
     app.middleware("http")(_observe_request)
     for router in (
         health.router,

@@ -6,7 +6,7 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Literal
 
-from pydantic import Field
+from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
 
@@ -61,8 +61,31 @@ class Settings(BaseSettings):
         default=300.0,
         description="A running job whose worker has not reported for this long is failed",
     )
+    cors_origins: list[str] = Field(
+        default_factory=list,
+        description="Browser origins allowed to call the API (CORS); empty: CORS off",
+    )
     metrics_public: bool = Field(
         default=True, description="Serve /metrics without an API key (else: admin scope)"
+    )
+
+    session_secret: SecretStr | None = Field(
+        default=None,
+        description="Key that signs the analyst pages' session cookie; give every host the "
+        "same value. Unset: read from session_secret_file, which is created on first use",
+    )
+    session_secret_file: Path = Field(
+        default=Path("var") / "session-secret",
+        description="Where the cookie-signing key is kept when session_secret is unset "
+        "(shared by the workers of one host)",
+    )
+    session_max_age_seconds: int = Field(
+        default=8 * 3600, ge=60, description="How long a sign-in to the analyst pages lasts"
+    )
+    session_cookie_secure: Literal["auto", "always", "never"] = Field(
+        default="auto",
+        description="Mark the session cookie Secure: auto = when the request came over HTTPS; "
+        "use always behind a proxy that terminates TLS",
     )
 
     @property

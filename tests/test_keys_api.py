@@ -14,28 +14,68 @@ from tests.conftest import Database, make_key
 
 pytestmark = pytest.mark.storage
 
-# (method, path, body, scope needed)
+# (method, route template, concrete path, body, scope needed): every /v1 route.
+SCHEDULE = {"cron": "30 2 * * *", "job": {"kind": "refit"}}
 ROUTES = [
-    ("GET", "/v1/products", None, "read"),
-    ("GET", "/v1/products/TEA-001", None, "read"),
-    ("PUT", "/v1/products/TEA-001", {"name": "tin"}, "write"),
-    ("PATCH", "/v1/products/TEA-001", {"name": "tin"}, "write"),
-    ("DELETE", "/v1/products/TEA-001", None, "admin"),
-    ("GET", "/v1/products/TEA-001/observations", None, "read"),
+    ("GET", "/v1/products", "/v1/products", None, "read"),
+    ("GET", "/v1/products/{sku}", "/v1/products/TEA-001", None, "read"),
+    ("PUT", "/v1/products/{sku}", "/v1/products/TEA-001", {"name": "tin"}, "write"),
+    ("PATCH", "/v1/products/{sku}", "/v1/products/TEA-001", {"name": "tin"}, "write"),
+    ("DELETE", "/v1/products/{sku}", "/v1/products/TEA-001", None, "admin"),
+    ("GET", "/v1/products/{sku}/observations", "/v1/products/TEA-001/observations", None, "read"),
     (
         "POST",
+        "/v1/products/{sku}/observations",
         "/v1/products/TEA-001/observations",
         {"observations": [{"period": "2024-01-01", "price": 1, "units": 1}]},
         "write",
     ),
-    ("POST", "/v1/imports", None, "write"),
-    ("GET", "/v1/api-keys", None, "admin"),
-    ("POST", "/v1/api-keys", {"name": "x", "scopes": ["read"]}, "admin"),
-    ("DELETE", "/v1/api-keys/abc", None, "admin"),
+    ("POST", "/v1/imports", "/v1/imports", None, "write"),
+    ("POST", "/v1/products/{sku}/fits", "/v1/products/TEA-001/fits", {}, "write"),
+    ("GET", "/v1/products/{sku}/fits", "/v1/products/TEA-001/fits", None, "read"),
+    ("GET", "/v1/products/{sku}/fits/{fit_id}", "/v1/products/TEA-001/fits/1", None, "read"),
+    ("GET", "/v1/products/{sku}/demand-model", "/v1/products/TEA-001/demand-model", None, "read"),
+    ("GET", "/v1/products/{sku}/elasticities", "/v1/products/TEA-001/elasticities", None, "read"),
+    ("POST", "/v1/products/{sku}/predict", "/v1/products/TEA-001/predict", {"price": 1.0}, "read"),
+    ("POST", "/v1/products/{sku}/optimal-price", "/v1/products/TEA-001/optimal-price", {}, "read"),
+    (
+        "POST",
+        "/v1/families/{family}/optimal-prices",
+        "/v1/families/green/optimal-prices",
+        {},
+        "read",
+    ),
+    ("GET", "/v1/recommendations", "/v1/recommendations", None, "read"),
+    ("POST", "/v1/jobs", "/v1/jobs", {"kind": "refit"}, "write"),
+    ("GET", "/v1/jobs", "/v1/jobs", None, "read"),
+    ("GET", "/v1/jobs/{job_id}", "/v1/jobs/1", None, "read"),
+    ("GET", "/v1/schedules", "/v1/schedules", None, "admin"),
+    ("GET", "/v1/schedules/{name}", "/v1/schedules/nightly", None, "admin"),
+    ("PUT", "/v1/schedules/{name}", "/v1/schedules/nightly", SCHEDULE, "admin"),
+    ("DELETE", "/v1/schedules/{name}", "/v1/schedules/nightly", None, "admin"),
+    ("GET", "/v1/api-keys", "/v1/api-keys", None, "admin"),
+    ("POST", "/v1/api-keys", "/v1/api-keys", {"name": "x", "scopes": ["read"]}, "admin"),
+    ("DELETE", "/v1/api-keys/{key_id}", "/v1/api-keys/abc", None, "admin"),
 ]
+EXTRA_ROUTES: list[tuple[str, str, str, object, str]] = []
+"""Routes added by other modules register here (see the test of completeness)."""
+
+
+def test_the_table_covers_every_route(client: TestClient) -> None:
+    from fastapi.routing import APIRoute
+
+    served = {
+        (method, route.path)
+        for route in client.app.routes  # type: ignore[attr-defined]
+        if isinstance(route, APIRoute) and route.path.startswith("/v1/")
+        for method in route.methods
+    }
+    covered = {(m, t) for m, t, _, _, _ in ROUTES + EXTRA_ROUTES}
+    assert served - covered == set(), "add the new routes to ROUTES with their scope"
 
 
 def _call(client: TestClient, method: str, path: str, body: object, key: str | None) -> int:
+    """The status of one call; only authentication and scope are of interest here."""
     headers = {"Authorization": f"Bearer {key}"} if key else {}
     if path == "/v1/imports":
         headers["content-type"] = "text/csv"
@@ -46,18 +86,30 @@ def _call(client: TestClient, method: str, path: str, body: object, key: str | N
 
 
 @pytest.mark.parametrize(
-    ("method", "path", "body", "scope"), ROUTES, ids=[f"{m} {p}" for m, p, _, _ in ROUTES]
+    ("method", "template", "path", "body", "scope"),
+    ROUTES,
+    ids=[f"{m} {t}" for m, t, _, _, _ in ROUTES],
 )
 def test_every_route_checks_its_scope(
-    client: TestClient, db: Database, method: str, path: str, body: object, scope: str
+    client: TestClient,
+    db: Database,
+    method: str,
+    template: str,
+    path: str,
+    body: object,
+    scope: str,
 ) -> None:
     assert _call(client, method, path, body, None) == 401
     assert _call(client, method, path, body, "mk_nothing_here") == 401
     assert _call(client, method, path, body, "not-even-the-format") == 401
     for other in {"read", "write", "admin"} - {scope}:
         assert _call(client, method, path, body, make_key(db.settings, other)) == 403
-    allowed = _call(client, method, path, body, make_key(db.settings, scope))
-    assert allowed not in (401, 403)
+    allowed_key = make_key(db.settings, scope)
+    assert _call(client, method, path, body, allowed_key) not in (401, 403)
+    revoked = make_key(db.settings, scope, name="revoked")
+    admin = {"Authorization": f"Bearer {make_key(db.settings, 'admin')}"}
+    client.delete(f"/v1/api-keys/{revoked.split('_')[1]}", headers=admin)
+    assert _call(client, method, path, body, revoked) == 401
 
 
 def test_unauthenticated_is_problem_json_with_challenge(client: TestClient) -> None:
@@ -120,3 +172,49 @@ def test_cli_create_list_revoke(
     assert (
         client.get("/v1/products", headers={"Authorization": f"Bearer {secret}"}).status_code == 401
     )
+
+
+def test_cors_is_off_by_default_and_configurable(db: Database) -> None:
+    from service.app import create_app
+
+    preflight = {"Origin": "https://shop.example", "Access-Control-Request-Method": "GET"}
+    with TestClient(create_app(db.settings)) as plain:
+        response = plain.options("/v1/products", headers=preflight)
+        assert "access-control-allow-origin" not in response.headers
+    allowed = db.settings.model_copy(update={"cors_origins": ["https://shop.example"]})
+    with TestClient(create_app(allowed)) as open_to_shop:
+        response = open_to_shop.options("/v1/products", headers=preflight)
+        assert response.headers["access-control-allow-origin"] == "https://shop.example"
+        other = open_to_shop.options(
+            "/v1/products", headers={**preflight, "Origin": "https://elsewhere.example"}
+        )
+        assert "access-control-allow-origin" not in other.headers
+
+
+def test_key_comparison_is_constant_time(
+    client: TestClient, db: Database, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import hmac
+
+    from service import auth
+
+    calls: list[tuple[str, str]] = []
+    original = hmac.compare_digest
+
+    def recording(a: str, b: str) -> bool:
+        calls.append((a, b))
+        return original(a, b)
+
+    monkeypatch.setattr(auth.hmac, "compare_digest", recording)
+    good = make_key(db.settings, "read")
+    key_id = good.split("_")[1]
+    assert (
+        client.get("/v1/products", headers={"Authorization": f"Bearer {good}"}).status_code == 200
+    )
+    wrong_secret = f"mk_{key_id}_{'x' * 43}"
+    unknown_id = f"mk_ffffffffffff_{'x' * 43}"
+    for token in (wrong_secret, unknown_id):
+        response = client.get("/v1/products", headers={"Authorization": f"Bearer {token}"})
+        assert response.status_code == 401
+    # every attempt, even for an unknown key id, went through the constant-time comparison
+    assert len(calls) == 3
