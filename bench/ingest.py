@@ -48,8 +48,9 @@ def write_csv(path: Path, rows: int, seed: int = 1) -> None:
     periods = [(start + dt.timedelta(weeks=w)).isoformat() for w in range(PERIODS)]
     with path.open("w", newline="") as handle:
         out = csv.writer(handle)
-        out.writerow(["sku", "period", "price", "units", "unit_cost", "in_stock", "promo",
-                      "rival_price"])
+        out.writerow(
+            ["sku", "period", "price", "units", "unit_cost", "in_stock", "promo", "rival_price"]
+        )
         written = 0
         for p in range(n_products):
             base = float(rng.uniform(3, 40))
@@ -60,8 +61,18 @@ def write_csv(path: Path, rows: int, seed: int = 1) -> None:
             for w in range(PERIODS):
                 if written == rows:
                     return
-                out.writerow([f"SKU-{p:06d}", periods[w], prices[w], units[w],
-                              round(base * 0.5, 2), "true", int(promo[w]), rival[w]])
+                out.writerow(
+                    [
+                        f"SKU-{p:06d}",
+                        periods[w],
+                        prices[w],
+                        units[w],
+                        round(base * 0.5, 2),
+                        "true",
+                        int(promo[w]),
+                        rival[w],
+                    ]
+                )
                 written += 1
 
 
@@ -72,8 +83,17 @@ def parsed_rows(path: Path, product_ids: dict[str, int]) -> list[tuple[object, .
         reader = csv.reader(handle)
         next(reader)
         for sku, period, price, units, cost, _stock, promo, rival in reader:
-            rows.append((product_ids[sku], period, float(price), float(units), float(cost), True,
-                         json.dumps({"promo": float(promo), "rival_price": float(rival)})))
+            rows.append(
+                (
+                    product_ids[sku],
+                    period,
+                    float(price),
+                    float(units),
+                    float(cost),
+                    True,
+                    json.dumps({"promo": float(promo), "rival_price": float(rival)}),
+                )
+            )
     return rows
 
 
@@ -163,7 +183,9 @@ print(json.dumps({"seconds": elapsed, "rows": outcome.rows, "inserted": outcome.
 def marginal_import(settings: Settings, path: Path) -> dict[str, float]:
     result = subprocess.run(
         [sys.executable, "-c", CHILD, str(ROOT), settings.model_dump_json(), str(path)],
-        check=True, capture_output=True, text=True,
+        check=True,
+        capture_output=True,
+        text=True,
     )
     return dict(json.loads(result.stdout.strip().splitlines()[-1]))
 

@@ -15,10 +15,7 @@ refits it, serves it with `marginal serve` on loopback, and measures in one run:
 from __future__ import annotations
 
 import argparse
-import os
-import socket
 import statistics
-import subprocess
 import sys
 import tempfile
 import threading
@@ -30,59 +27,10 @@ import httpx
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from models import generate_catalogue  # noqa: E402
-from service import auth, demo, jobs, migrate  # noqa: E402
-from service.db import make_engine, make_session_factory, session_scope  # noqa: E402
+from bench.serving import free_port, prepare, serve  # noqa: E402
 from service.settings import Settings  # noqa: E402
-from service.worker import JobRunner  # noqa: E402
 
 SINGLE = {"objective": "profit", "constraints": {"max_change_pct": 15}}
-
-
-def prepare(settings: Settings) -> str:
-    migrate.upgrade(settings)
-    demo.load_catalogue(settings, generate_catalogue(11, n_products=50))
-    engine = make_engine(settings)
-    with session_scope(make_session_factory(engine, writer=True)) as session:
-        job_id = jobs.create(session, kind="refit", scope="all").id
-        key = auth.create_key(session, name="bench", scopes=["read"]).secret
-    runner = JobRunner(engine, settings)
-    runner.claim(job_id)
-    runner.run(job_id)
-    engine.dispose()
-    return key
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
-def serve(settings: Settings, port: int) -> subprocess.Popen[bytes]:
-    env = dict(
-        os.environ,
-        MARGINAL_DATABASE_URL=settings.database_url,
-        MARGINAL_WORKER_ENABLED="false",
-        MARGINAL_SCHEDULER_ENABLED="false",
-        MARGINAL_LOG_LEVEL="warning",
-    )
-    process = subprocess.Popen(
-        [sys.executable, "-m", "service.cli", "serve", "--host", "127.0.0.1", "--port", str(port)],
-        env=env,
-        cwd=ROOT,
-        stdout=subprocess.DEVNULL,
-        stderr=subprocess.DEVNULL,
-    )
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(f"http://127.0.0.1:{port}/readyz", timeout=1).status_code == 200:
-                return process
-        except httpx.HTTPError:
-            time.sleep(0.2)
-    process.kill()
-    raise RuntimeError("the server did not become ready")
 
 
 def latency(client: httpx.Client, method: str, url: str, body: object, n: int) -> str:
