@@ -13,8 +13,9 @@ from fastapi import FastAPI, Request, Response
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError, SQLAlchemyError
+from sqlalchemy.exc import TimeoutError as PoolTimeout
 
-from service import logs, metrics, schedules
+from service import logs, metrics, schedules, ui
 from service.api import fits, health, imports, jobs, keys, observations, pricing, products
 from service.api import metrics as metrics_route
 from service.db import make_engine, make_session_factory
@@ -94,8 +95,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         pricing.router,
         jobs.router,
         keys.router,
+        ui.router,
     ):
         app.include_router(router)
+    app.mount(ui.STATIC_URL, ui.static_files(), name="ui-static")
     return app
 
 
@@ -186,6 +189,8 @@ def _install_database_outage_handler(app: FastAPI) -> None:
     app.add_exception_handler(IntegrityError, conflict)
     app.add_exception_handler(OperationalError, outage)
     app.add_exception_handler(DBAPIError, outage)
+    # No pooled connection came free in time: overloaded, not broken.
+    app.add_exception_handler(PoolTimeout, outage)
 
 
 def _is_outage(exc: DBAPIError) -> bool:

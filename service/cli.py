@@ -181,6 +181,18 @@ def _worker(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _report(args: argparse.Namespace, settings: Settings) -> int:
+    """Write the analyst pages and charts as a static folder, with progress."""
+    from service.ui.report import write_report
+
+    summary = write_report(settings, Path(args.out), family=args.family)
+    print(
+        f"wrote {summary.pages} pages and {summary.charts} charts for {summary.products} "
+        f"products to {summary.out}"
+    )
+    return 0
+
+
 def openapi_document() -> str:
     from service.app import create_app
 
@@ -266,6 +278,13 @@ def build_parser() -> argparse.ArgumentParser:
         help="only run jobs; let other processes start scheduled slots",
     )
     worker.set_defaults(run=_worker)
+
+    report = commands.add_parser(
+        "report", help="write the analyst pages and charts as a static folder"
+    )
+    report.add_argument("--out", required=True, help="folder to write (created if missing)")
+    report.add_argument("--family", help="only this family's products")
+    report.set_defaults(run=_report)
 
     openapi = commands.add_parser("openapi", help="write the OpenAPI document")
     openapi.add_argument("--out", default=str(OPENAPI_PATH))

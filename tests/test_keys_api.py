@@ -57,7 +57,16 @@ ROUTES = [
     ("POST", "/v1/api-keys", "/v1/api-keys", {"name": "x", "scopes": ["read"]}, "admin"),
     ("DELETE", "/v1/api-keys/{key_id}", "/v1/api-keys/abc", None, "admin"),
 ]
-EXTRA_ROUTES: list[tuple[str, str, str, object, str]] = []
+EXTRA_ROUTES: list[tuple[str, str, str, object, str]] = [
+    # The chart route; its content and caching are tested in tests/test_ui_view.py.
+    (
+        "GET",
+        "/v1/products/{sku}/charts/{kind}.svg",
+        "/v1/products/TEA-001/charts/demand.svg",
+        None,
+        "read",
+    ),
+]
 """Routes added by other modules register here (see the test of completeness)."""
 
 

@@ -1,0 +1,76 @@
+"""One product's charts: identify, load, draw, and keep in the cache.
+
+matplotlib is imported on the first drawing, not when the service starts.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+from sqlalchemy.orm import Session
+
+from service.ui import chartdata, records
+from service.ui.cache import ChartKey, SvgCache, chart_cache
+from service.ui.chartdata import KINDS
+from service.ui.records import ProductInfo
+
+if TYPE_CHECKING:
+    from service.ui.charts import Chart
+
+
+def chart_key(session: Session, product: ProductInfo, kind: str) -> ChartKey:
+    """What the chart is drawn from: cheap to find, so a 304 needs no drawing."""
+    fit_id, recommendation_id = records.latest_ids(session, product.id)
+    return ChartKey(
+        sku=product.sku,
+        kind=kind,
+        fit_id=fit_id,
+        recommendation_id=recommendation_id,
+        product_stamp=product.stamp,
+    )
+
+
+def subject(session: Session, product: ProductInfo) -> chartdata.Subject:
+    shown = records.shown_fit(session, product.id)
+    return chartdata.Subject(
+        product=product,
+        fit=shown,
+        recommendation=records.latest_recommendation(session, product.id),
+        history=chartdata.load_history(session, product, shown),
+    )
+
+
+def draw(subject: chartdata.Subject, kind: str) -> Chart:
+    from service.ui import charts
+
+    if kind == "demand":
+        return charts.demand_chart(chartdata.demand_inputs(subject))
+    if kind == "money":
+        return charts.money_chart(chartdata.money_inputs(subject))
+    return charts.fit_time_chart(chartdata.fit_time_inputs(subject))
+
+
+def draw_all(subject: chartdata.Subject) -> dict[str, Chart]:
+    return {kind: draw(subject, kind) for kind in KINDS}
+
+
+def describe(subject: chartdata.Subject, kind: str) -> tuple[str, tuple[str, ...]]:
+    """A chart's title and summary, without drawing it (for pages that link the SVG)."""
+    from service.ui import charts
+
+    if kind == "demand":
+        return charts.demand_text(chartdata.demand_inputs(subject))
+    if kind == "money":
+        return charts.money_text(chartdata.money_inputs(subject))
+    return charts.fit_time_text(chartdata.fit_time_inputs(subject))
+
+
+def cached_svg(
+    session: Session, product: ProductInfo, key: ChartKey, cache: SvgCache = chart_cache
+) -> bytes:
+    """The chart ``key`` names, drawn only when the cache does not hold it."""
+    found = cache.get(key)
+    if found is None:
+        found = draw(subject(session, product), key.kind).svg
+        cache.put(key, found)
+    return found

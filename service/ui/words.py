@@ -1,0 +1,190 @@
+"""Plain words for codes and figures: warning badges, rules, diagnostics.
+
+Thresholds that are rules of thumb say so where they are shown.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from models.checks import SIGNIFICANCE, VIF_LIMIT, WEAK_INSTRUMENT_F
+
+
+@dataclass(frozen=True)
+class Badge:
+    """A short label with the full sentence behind it; ``level`` is caution or note."""
+
+    code: str
+    label: str
+    detail: str
+    level: str
+
+
+# Fit warnings that question the price effect itself are cautions; the rest are notes.
+_FIT_WARNINGS = {
+    "own_price_positive": ("price effect has the wrong sign", "caution"),
+    "own_price_not_significant": ("price effect unclear", "caution"),
+    "few_observations_per_term": ("few weeks per term", "caution"),
+    "low_price_variation": ("price barely varied", "caution"),
+    "high_vif": ("drivers overlap", "note"),
+    "stockouts_excluded": ("stockout weeks left out", "note"),
+    "zero_units_dropped": ("zero-sale weeks dropped", "note"),
+    "missing_values_dropped": ("incomplete weeks dropped", "note"),
+    "terms_dropped": ("terms dropped", "note"),
+    "weak_instrument": ("weak instrument", "caution"),
+}
+
+_PRICING_WARNINGS = {
+    "price_outside_observed_range": ("beyond prices seen", "caution"),
+    "objective_unbounded_above": ("set by an upper limit", "note"),
+    "objective_unbounded_below": ("set by a lower limit", "note"),
+    "cost_above_feasible_prices": ("cost above allowed prices", "caution"),
+    "own_price_wrong_sign_forced": ("priced despite wrong sign", "caution"),
+    "no_expected_demand": ("no demand at this price", "caution"),
+    "draws_wrong_sign": ("some draws slope upward", "note"),
+    "uncertainty_unavailable": ("no uncertainty figures", "note"),
+    "current_figures_unavailable": ("no current figures", "note"),
+}
+
+
+def fit_badge(code: str, message: str) -> Badge:
+    label, level = _FIT_WARNINGS.get(code, (code.replace("_", " "), "note"))
+    return Badge(code, label, message, level)
+
+
+def pricing_badge(code: str, message: str) -> Badge:
+    label, level = _PRICING_WARNINGS.get(code, (code.replace("_", " "), "note"))
+    return Badge(code, label, message, level)
+
+
+_GATES = {
+    "expected_sign": "the price effect must be negative",
+    "price_variation": "the price must have varied enough",
+    "enough_observations": "enough weeks of history",
+    "holdout_not_worse": "hold-out error no worse than the active fit's",
+}
+
+
+def gate_words(name: str) -> str:
+    return _GATES.get(name, name.replace("_", " "))
+
+
+_RULES = {
+    "min_price": "the lowest allowed price",
+    "max_price": "the highest allowed price",
+    "max_change_pct": "the largest allowed change from the current price",
+    "min_margin_pct": "the minimum margin",
+    "price_step": "the price step",
+    "price_endings": "the allowed price endings",
+    "max_units": "the stock limit",
+    "min_units": "the volume floor",
+    "observed_price_range": "the guard against prices far from those seen",
+}
+
+
+def rule_words(name: str) -> str:
+    return _RULES.get(name, name.replace("_", " "))
+
+
+def rules_words(names: tuple[str, ...] | list[str]) -> str:
+    return ", ".join(rule_words(n) for n in names)
+
+
+def elasticity_class_words(value: float, classification: str | None) -> str:
+    """The class in words; a non-negative own-price elasticity is called what it is."""
+    if value >= 0:
+        return "wrong sign"
+    return (classification or "not classified").replace("_", " ")
+
+
+@dataclass(frozen=True)
+class Reading:
+    """A diagnostic figure and what it says."""
+
+    name: str
+    value: str
+    meaning: str
+
+
+def _fmt(value: float | None, digits: int = 3) -> str:
+    if value is None or not math.isfinite(value):
+        return "n/a"
+    return f"{value:.{digits}g}"
+
+
+def diagnostics(figures: dict[str, float | None], standard_errors: str) -> list[Reading]:
+    """Each stored diagnostic with a sentence; figures that are missing are left out."""
+    readings = []
+    robust = standard_errors in ("hc3", "hac")
+    dw = figures.get("durbin_watson")
+    if dw is not None:
+        # Rule of thumb (common practice, no source): 1.5 to 2.5 shows no worrying pattern.
+        if 1.5 <= dw <= 2.5:
+            meaning = "close to 2: no sign that one week's surprise carries into the next."
+        elif dw < 1.5:
+            meaning = "below 1.5: surprises tend to carry into the following weeks; " + (
+                "the chosen Newey-West standard errors allow for that."
+                if standard_errors == "hac"
+                else "intervals may be too narrow; consider standard_errors hac."
+            )
+        else:
+            meaning = "above 2.5: surprises tend to flip sign from week to week."
+        readings.append(Reading("Durbin-Watson", _fmt(dw), meaning))
+    bp = figures.get("breusch_pagan_p")
+    if bp is not None:
+        if bp < SIGNIFICANCE:
+            meaning = "the spread of the errors changes with the drivers; " + (
+                "the robust standard errors in use allow for that."
+                if robust
+                else "classical standard errors may mislead; consider hc3."
+            )
+        else:
+            meaning = "no evidence that the spread of the errors changes with the drivers."
+        readings.append(Reading("Breusch-Pagan p-value", _fmt(bp), meaning))
+    jb = figures.get("jarque_bera_p")
+    if jb is not None:
+        meaning = (
+            "the errors are not normally shaped: week-level ranges may be off in the tails."
+            if jb < SIGNIFICANCE
+            else "no evidence against normally shaped errors."
+        )
+        readings.append(Reading("Jarque-Bera p-value", _fmt(jb), meaning))
+    cond = figures.get("condition_number")
+    if cond is not None:
+        readings.append(
+            Reading(
+                "Condition number",
+                _fmt(cond),
+                "how close the drivers come to duplicating each other (larger is closer); "
+                f"the VIF column shows which terms are involved (above {VIF_LIMIT:g} is high, "
+                "common practice).",
+            )
+        )
+    first = figures.get("first_stage_f")
+    if first is not None:
+        readings.append(
+            Reading(
+                "First-stage F",
+                _fmt(first),
+                (
+                    f"below {WEAK_INSTRUMENT_F:g}: the instrument barely moves the price "
+                    "(weak), so the instrumented estimate is unreliable (Staiger and Stock rule "
+                    "of thumb)."
+                )
+                if first < WEAK_INSTRUMENT_F
+                else "the instrument moves the price clearly enough.",
+            )
+        )
+    endo = figures.get("endogeneity_p")
+    if endo is not None:
+        readings.append(
+            Reading(
+                "Endogeneity test p-value",
+                _fmt(endo),
+                "the price responds to demand itself; prefer the instrumented estimate."
+                if endo < SIGNIFICANCE
+                else "no evidence that the price responds to demand itself.",
+            )
+        )
+    return readings
