@@ -50,6 +50,8 @@ def score_forms(
 
     # errors[i][form][fold] = (sum |error|, sum |units|) or None when that fold could not be fitted
     errors: list[dict[str, list[tuple[float, float] | None]]] = [{} for _ in histories]
+    # The first reason other than too few rows that stopped a fold, per history.
+    obstacles: list[Exception | None] = [None] * len(histories)
     for form in (*BASE_CANDIDATES, "poisson"):
         members = [i for i, d in enumerate(base) if isinstance(d, dict) and form in d]
         if not members:
@@ -74,6 +76,10 @@ def score_forms(
                     )
                 else:
                     errors[i][form].append(None)
+                    if isinstance(result, Exception) and not isinstance(
+                        result, InsufficientDataError
+                    ):
+                        obstacles[i] = obstacles[i] or result
 
     out: list[dict[str, float | None] | Exception] = []
     for i, entry in enumerate(base):
@@ -84,11 +90,16 @@ def score_forms(
         valid = [f for f in range(FOLDS) if all(per_form[form][f] is not None for form in per_form)]
         if not valid:
             linear = entry["linear"]
+            required = _auto_required(len(linear.terms))
+            found = obstacles[i]
+            if found is not None and linear.n_usable >= required:
+                out.append(found)  # enough rows: the data itself is the obstacle
+                continue
             out.append(
                 InsufficientDataError(
                     linear.sku,
                     linear.n_usable,
-                    _auto_required(len(linear.terms)),
+                    required,
                     "auto needs enough periods to score every form out of sample",
                 )
             )

@@ -36,8 +36,11 @@ def write_session(request: Request) -> Iterator[Session]:
 
 
 SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
-ReadSession = Annotated[Session, Depends(read_session)]
-WriteSession = Annotated[Session, Depends(write_session)]
+# Scope "function": the session commits (or fails) before the response is sent, so a
+# client is never told that something was stored when the commit did not happen, and
+# reads that follow an answer see what it reported.
+ReadSession = Annotated[Session, Depends(read_session, scope="function")]
+WriteSession = Annotated[Session, Depends(write_session, scope="function")]
 
 
 def _caller(
@@ -47,6 +50,10 @@ def _caller(
 ) -> Principal:
     # The read session is the request's own (FastAPI reuses it for the route).
     principal, stale = auth.authenticate(session, authorization)
+    # Hand its connection back to the pool: a write route works in a session of its own,
+    # and a request holding two connections at once lets concurrent writers take every
+    # pooled connection while each waits for a second one.
+    session.commit()
     if stale:
         with session_scope(_factory(request, "write_sessions")) as writer:
             auth.touch_key(writer, key_id=principal.key_id)

@@ -23,6 +23,7 @@ from models import (
 )
 from service import histories, metrics, products
 from service.errors import ErrorItem, InvalidInput, NotFound
+from service.numeric import NUMERIC_FAILURES, strict_floats, unusable
 from service.settings import Settings
 from service.tables import FitRow, ProductRow, as_utc, utcnow
 
@@ -256,7 +257,10 @@ def fit_now(
     model_spec = parse_spec(spec if spec is not None else product.default_spec)
     history = histories.load_history(session, product=product, cross_skus=model_spec.cross_prices)
     try:
-        fit = fit_demand(history, model_spec)
+        with strict_floats():
+            fit = fit_demand(history, model_spec)
+            if model_spec.pooling == "family" and product.family:
+                fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
     except InsufficientDataError as exc:
         raise InvalidInput(
             f"not enough data to fit {sku!r}: {exc.n_obs} usable observations, the model "
@@ -268,8 +272,11 @@ def fit_now(
             f"the data of {sku!r} cannot support this model: {exc}",
             errors=[ErrorItem(field="spec", message=str(exc))],
         ) from None
-    if model_spec.pooling == "family" and product.family:
-        fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
+    except NUMERIC_FAILURES as exc:
+        raise unusable(
+            f"the history of {sku!r} cannot be fitted in the {model_spec.form} form", exc,
+            field="spec",
+        ) from None
     row = record_fit(session, product=product, fit=fit, settings=settings)
     metrics.record_fit("activated" if row.status == ACTIVE else "rejected")
     return row

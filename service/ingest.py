@@ -130,10 +130,19 @@ def import_csv(
     """Stream a CSV of observations into storage in one transaction (the caller's)."""
     errors = _CsvErrors()
     text = io.TextIOWrapper(raw, encoding="utf-8-sig", newline="")
-    reader = csv.reader(text)
+    # Strict: a quoted cell left open at the end (an upload cut short) is an error,
+    # not a cell that runs to the end of the file.
+    reader = csv.reader(text, strict=True)
     try:
         header = next(reader, None)
-    except (UnicodeDecodeError, csv.Error) as exc:
+    except UnicodeDecodeError as exc:
+        raise InvalidInput(
+            "the file is not UTF-8 CSV",
+            errors=[
+                ErrorItem(line=_bad_utf8_line(raw, 1), message=f"not valid UTF-8: {exc.reason}")
+            ],
+        ) from None
+    except csv.Error as exc:
         raise InvalidInput(
             "the file is not UTF-8 CSV", errors=[ErrorItem(line=1, message=str(exc))]
         ) from None
@@ -147,7 +156,25 @@ def import_csv(
     assert layout is not None
 
     with _cyclic_gc_paused():
-        return _stream_rows(session, reader, layout, errors, create_products, chunk_rows)
+        return _stream_rows(session, reader, layout, errors, create_products, chunk_rows, raw)
+
+
+def _bad_utf8_line(raw: IO[bytes], fallback: int) -> int:
+    """The line of the first byte that is not UTF-8.
+
+    The decoder reads ahead in blocks, so the CSV reader's position at the error can
+    be hundreds of lines early; a second pass over the raw bytes finds the line itself
+    (a newline byte is never part of a multi-byte UTF-8 sequence).
+    """
+    if not raw.seekable():
+        return fallback
+    raw.seek(0)
+    for number, line in enumerate(raw, start=1):
+        try:
+            line.decode("utf-8")
+        except UnicodeDecodeError:
+            return number
+    return fallback
 
 
 _gc_pauses = 0
@@ -183,6 +210,7 @@ def _stream_rows(
     errors: _CsvErrors,
     create_products: bool,
     chunk_rows: int,
+    raw: IO[bytes],
 ) -> UpsertOutcome:
     writer = ObservationWriter(session)
     sku_ids: dict[str, int] = {}
@@ -217,7 +245,7 @@ def _stream_rows(
             if errors.full:
                 break
     except UnicodeDecodeError as exc:
-        errors.add(reader.line_num + 1, None, f"not valid UTF-8: {exc.reason}")
+        errors.add(_bad_utf8_line(raw, reader.line_num + 1), None, f"not valid UTF-8: {exc.reason}")
     except csv.Error as exc:
         errors.add(reader.line_num, None, f"malformed CSV: {exc}")
     if n_rows == 0 and not errors.items:

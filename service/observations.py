@@ -31,7 +31,8 @@ class ObservationWriter:
     """Upserts observations in chunks within the caller's transaction and counts outcomes.
 
     On SQLite the transaction holds the write lock from BEGIN IMMEDIATE, so the change in
-    the table's row count is exactly the number of new periods.
+    the table's row count is exactly the number of new periods. On PostgreSQL a
+    transaction-scoped advisory lock plays the same part for observation writers.
     """
 
     def __init__(self, session: Session) -> None:
@@ -46,6 +47,14 @@ class ObservationWriter:
             self._count_before = self._table_count()
         else:
             with self._driver.cursor() as cur:
+                # Observation writers queue, as SQLite's BEGIN IMMEDIATE makes them do:
+                # chunked upserts of overlapping periods taken in different orders would
+                # deadlock, and imports creating the same new sku would collide. The lock
+                # is per schema and ends with the transaction.
+                cur.execute(
+                    "SELECT pg_advisory_xact_lock(hashtext(current_schema()), "
+                    "hashtext('marginal.observations'))"
+                )
                 cur.execute(
                     "CREATE TEMP TABLE IF NOT EXISTS observation_stage ("
                     "product_id integer, period date, price double precision, "

@@ -27,6 +27,7 @@ from models.pricing import (
 from service import products
 from service.errors import Conflict, ErrorItem, InvalidInput, NotFound
 from service.fits import active_fit
+from service.numeric import NUMERIC_FAILURES, strict_floats, unusable
 from service.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 from service.tables import ProductRow, RecommendationRow, utcnow
 
@@ -105,22 +106,25 @@ def recommend(
     fit_id, fit = active_fit(session, product)
     _check_scenario(fit, body.scenario)
     try:
-        result = optimal_price(
-            fit,
-            objective=body.objective,
-            unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
-            current_price=current_price(product, fit, body.current_price),
-            constraints=price_constraints(product, body.constraints),
-            scenario=body.scenario,
-            uncertainty_draws=body.uncertainty_draws,
-            seed=body.seed,
-            curve_points=body.curve_points,
-            force=body.force,
-        )
+        with strict_floats():
+            result = optimal_price(
+                fit,
+                objective=body.objective,
+                unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
+                current_price=current_price(product, fit, body.current_price),
+                constraints=price_constraints(product, body.constraints),
+                scenario=body.scenario,
+                uncertainty_draws=body.uncertainty_draws,
+                seed=body.seed,
+                curve_points=body.curve_points,
+                force=body.force,
+            )
     except WrongSignError as exc:
         raise _conflict(exc) from None
     except PricingInputError as exc:
         raise _invalid(exc) from None
+    except NUMERIC_FAILURES as exc:
+        raise unusable("no price can be recommended from this fit", exc) from None
     data = result.to_dict()
     row = _store(
         session,
@@ -196,26 +200,31 @@ def recommend_family(session: Session, *, family: str, body: FamilyPriceRequest)
         )
     order = [(a, b) for a, b in body.order if a in fits and b in fits]
     try:
-        result = optimal_family_prices(
-            fits,
-            objective=body.objective,
-            unit_costs={s: by_sku[s].unit_cost for s in fits},
-            current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
-            constraints={
-                s: price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints))
-                for s in fits
-            },
-            order=order,
-            max_total_change_pct=body.max_total_change_pct,
-            scenario=body.scenario,
-            uncertainty_draws=body.uncertainty_draws,
-            seed=body.seed,
-            force=body.force,
-        )
+        with strict_floats():
+            result = optimal_family_prices(
+                fits,
+                objective=body.objective,
+                unit_costs={s: by_sku[s].unit_cost for s in fits},
+                current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
+                constraints={
+                    s: price_constraints(
+                        by_sku[s], body.product_constraints.get(s, body.constraints)
+                    )
+                    for s in fits
+                },
+                order=order,
+                max_total_change_pct=body.max_total_change_pct,
+                scenario=body.scenario,
+                uncertainty_draws=body.uncertainty_draws,
+                seed=body.seed,
+                force=body.force,
+            )
     except WrongSignError as exc:
         raise _conflict(exc) from None
     except PricingInputError as exc:
         raise _invalid(exc) from None
+    except NUMERIC_FAILURES as exc:
+        raise unusable("no prices can be recommended from these fits", exc) from None
     data = result.to_dict()
     request = body.model_dump()
     stored = []

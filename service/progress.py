@@ -29,8 +29,14 @@ class JobProgressDisplay:
         if self.interactive:
             # Some pseudo-terminals report a 0 x 0 screen, on which tqdm draws nothing.
             size = shutil.get_terminal_size(fallback=(100, 24))
-            self.bar = tqdm(total=0, desc=self.title, unit="product", file=self.stream,
-                            ncols=size.columns, nrows=size.lines)
+            self.bar = tqdm(
+                total=0,
+                desc=self.title,
+                unit="product",
+                file=self.stream,
+                ncols=size.columns,
+                nrows=size.lines,
+            )
         else:
             print(f"{self.title}: started", file=self.stream, flush=True)
         return self

@@ -17,11 +17,12 @@ from typing import Any
 from sqlalchemy import func, insert, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import DemandFit, FitFailure, ModelSpec, SpecError, fit_many
+from models import DemandFit, FitFailure, History, ModelSpec, SpecError, fit_many
 from service import jobs
 from service.db import session_scope
 from service.fits import ACTIVE, SUPERSEDED, quality_gates, row_values
 from service.histories import ProductRef, load_histories
+from service.numeric import NUMERIC_FAILURES, reason, strict_floats
 from service.settings import Settings
 from service.tables import FitRow, JobRow, ProductRow, as_utc
 
@@ -147,7 +148,7 @@ def _fit_batch(
     with session_scope(reads) as session:
         histories = load_histories(session, [ProductRef(c.id, c.sku) for c in batch], cross)
     families = {c.sku: c.family or "" for c in batch}
-    results = fit_many(histories, spec, families=families)
+    results = fit_guarded(histories, spec, families=families)
     with session_scope(writes) as session:
         _record(
             session,
@@ -159,6 +160,32 @@ def _fit_batch(
         )
         progress.done += len(batch)
         jobs.save_progress(session, job_id=job_id, progress=progress)
+
+
+def fit_guarded(
+    histories: Sequence[History], spec: ModelSpec, *, families: dict[str, str]
+) -> list[DemandFit | FitFailure]:
+    """``fit_many``, except that a product whose numbers defeat double precision becomes a
+    failure of its own instead of stopping the whole batch."""
+    try:
+        with strict_floats():
+            return fit_many(histories, spec, families=families)
+    except NUMERIC_FAILURES:
+        pass
+    failures: dict[str, FitFailure] = {}
+    for history in histories:
+        try:
+            with strict_floats():
+                fit_many([history], spec, families=families)
+        except NUMERIC_FAILURES as exc:
+            failures[history.sku] = FitFailure(history.sku, reason(exc), type(exc).__name__)
+    rest = [h for h in histories if h.sku not in failures]
+    try:
+        with strict_floats():
+            fitted = iter(fit_many(rest, spec, families=families))
+    except NUMERIC_FAILURES as exc:  # only together do they fail: fail them all
+        fitted = iter(FitFailure(h.sku, reason(exc), type(exc).__name__) for h in rest)
+    return [failures.get(h.sku) or next(fitted) for h in histories]
 
 
 def _record(

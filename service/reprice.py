@@ -11,6 +11,7 @@ from models.pricing import PricingInputError, WrongSignError, optimal_price
 from service import jobs
 from service.db import session_scope
 from service.fits import ACTIVE, fit_cache
+from service.numeric import NUMERIC_FAILURES, reason, strict_floats
 from service.pricing import current_price, price_constraints
 from service.refit import scope_filter
 from service.schemas import OptimalPriceRequest
@@ -60,24 +61,25 @@ def run_reprice(
                     continue
                 fit = fit_cache.get(session, fit_id, created_at)
                 try:
-                    result = optimal_price(
-                        fit,
-                        objective=request.objective,
-                        unit_cost=(
-                            request.unit_cost
-                            if request.unit_cost is not None
-                            else product.unit_cost
-                        ),
-                        current_price=current_price(product, fit, request.current_price),
-                        constraints=price_constraints(product, request.constraints),
-                        scenario={
-                            k: v for k, v in request.scenario.items() if k in fit.variable_means
-                        },
-                        uncertainty_draws=request.uncertainty_draws,
-                        seed=request.seed,
-                        curve_points=request.curve_points,
-                        force=request.force,
-                    )
+                    with strict_floats():
+                        result = optimal_price(
+                            fit,
+                            objective=request.objective,
+                            unit_cost=(
+                                request.unit_cost
+                                if request.unit_cost is not None
+                                else product.unit_cost
+                            ),
+                            current_price=current_price(product, fit, request.current_price),
+                            constraints=price_constraints(product, request.constraints),
+                            scenario={
+                                k: v for k, v in request.scenario.items() if k in fit.variable_means
+                            },
+                            uncertainty_draws=request.uncertainty_draws,
+                            seed=request.seed,
+                            curve_points=request.curve_points,
+                            force=request.force,
+                        )
                 except WrongSignError as exc:
                     progress.counts["failed"] += 1
                     progress.add_error(product.sku, f"refused: {exc.reason}")
@@ -85,6 +87,10 @@ def run_reprice(
                 except (PricingInputError, ValueError) as exc:
                     progress.counts["failed"] += 1
                     progress.add_error(product.sku, str(exc))
+                    continue
+                except NUMERIC_FAILURES as exc:
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, f"no price could be computed: {reason(exc)}")
                     continue
                 progress.counts["recommended"] += 1
                 records.append(

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, status
@@ -14,6 +15,7 @@ from service.api.products import SkuPath
 from service.deps import READ, WRITE, ReadSession, SettingsDep, WriteSession
 from service.errors import ErrorItem, InvalidInput
 from service.mapping import fit_out, fit_summary
+from service.numeric import NUMERIC_FAILURES, strict_floats, unusable
 from service.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.schemas import (
     ElasticitiesOut,
@@ -114,6 +116,11 @@ def _parse_at(at: str) -> str | dict[str, float]:
                 "`at` has a value that is not a number",
                 errors=[ErrorItem(field="at", message=f"{part!r} is not name:number")],
             ) from None
+        if not math.isfinite(values[name]):
+            raise InvalidInput(
+                "`at` has a value that is not a finite number",
+                errors=[ErrorItem(field="at", message=f"{part!r} overflows double precision")],
+            )
     return values
 
 
@@ -161,7 +168,16 @@ def get_elasticities(
                 for name in unknown
             ],
         )
-    report = models.elasticities(fit, at=point, income_like=tuple(income_like or ()))
+    try:
+        with strict_floats():
+            report = models.elasticities(fit, at=point, income_like=tuple(income_like or ()))
+    except ValueError as exc:  # a log term met a non-positive value
+        raise InvalidInput(
+            "elasticities cannot be evaluated at these values",
+            errors=[ErrorItem(field="at", message=str(exc))],
+        ) from None
+    except NUMERIC_FAILURES as exc:
+        raise unusable("no elasticities at these values", exc, field="at") from None
     body = report.to_dict()
     warnings = []
     price = report.point.get("price")
@@ -203,19 +219,22 @@ def predict(sku: SkuPath, body: PredictRequest, session: ReadSession) -> Predict
         )
     unit_cost = body.unit_cost if body.unit_cost is not None else product.unit_cost
     try:
-        result = models.predict(
-            fit,
-            price=body.price,
-            covariates=body.covariates,
-            cross_prices=body.cross_prices,
-            unit_cost=unit_cost,
-            level=body.level,
-        )
+        with strict_floats():
+            result = models.predict(
+                fit,
+                price=body.price,
+                covariates=body.covariates,
+                cross_prices=body.cross_prices,
+                unit_cost=unit_cost,
+                level=body.level,
+            )
     except ValueError as exc:  # a log term met a non-positive value
         raise InvalidInput(
             "these values cannot enter the model",
             errors=[ErrorItem(field="body", message=str(exc))],
         ) from None
+    except NUMERIC_FAILURES as exc:
+        raise unusable("no prediction at these values", exc) from None
     warnings = []
     if (w := price_range_warning(fit, body.price)) is not None:
         warnings.append({"code": w.code, "message": w.message})
