@@ -15,7 +15,8 @@ from service.db import session_scope
 from service.settings import Settings
 
 
-def get_settings_dep(request: Request) -> Settings:
+async def get_settings_dep(request: Request) -> Settings:
+    # async: no I/O, so no hop to the thread pool.
     settings: Settings = request.app.state.settings
     return settings
 
@@ -72,7 +73,8 @@ def check_scope(request: Request, authorization: str | None, scope: Scope) -> Pr
 def requires(scope: Scope) -> DependsParam:
     """A dependency that admits callers whose key carries ``scope``."""
 
-    def check(principal: Annotated[Principal, Depends(_caller)]) -> Principal:
+    async def check(principal: Annotated[Principal, Depends(_caller)]) -> Principal:
+        # async: a pure check, so no hop to the thread pool.
         auth.require(principal, scope)
         return principal
 
