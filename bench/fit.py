@@ -10,21 +10,36 @@ trend in levels) twice over the same pre-split arrays:
   Durbin-Watson, Breusch-Pagan, Jarque-Bera).
 
 Prints products per second, the speed ratio and the largest relative difference
-(coefficients relative to their standard error). ``--end-to-end`` also times
-``models.fit_many`` from History objects (design building and fit records included).
+(coefficients relative to their standard error).
 
-Usage: python bench/fit.py [--products N] [--repeat R] [--end-to-end]
+``--end-to-end`` also times what the nightly refit does with the same data held as
+History objects: ``models.fit_many`` in batches (designs, exclusions, fits, hold-out WAPE,
+diagnostics, warnings, equations: complete fit records) and ``DemandFit.to_dict`` on every
+record, next to two baselines measured in the same run: ``models.fit_demand`` product by
+product (on a sample), and the field-by-field serialisation ``to_dict`` used to do
+(``clean`` on every value). ``--freeze-heap`` first moves the objects already alive to
+the collector's permanent generation (``gc.freeze()``), as a long-running worker can do
+after start-up, so that full collections no longer walk them.
+
+Usage: python bench/fit.py [--products N] [--repeat R] [--end-to-end [--batch B]
+       [--standard-errors hc3|classical|hac] [--single-sample S] [--freeze-heap]]
 """
 
 from __future__ import annotations
 
 import argparse
+import gc
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import fields
+from typing import Any
 
 import numpy as np
 import statsmodels.api as sm
 
-from models import History, ModelSpec, fit_many, fit_ols_stack
+from models import DemandFit, History, ModelSpec, fit_demand, fit_many, fit_ols_stack
+from models.result import clean
 
 N_PERIODS = 104
 
@@ -81,11 +96,137 @@ def histories(design: np.ndarray, response: np.ndarray) -> list[History]:
     return out
 
 
+def field_by_field(fit: DemandFit) -> dict[str, Any]:
+    """The serialisation ``DemandFit.to_dict`` used to do: every value through ``clean``."""
+    out: dict[str, Any] = {}
+    for f in fields(fit):
+        value = getattr(fit, f.name)
+        if f.name == "spec":
+            out[f.name] = value.to_dict()
+        elif f.name == "terms":
+            out[f.name] = [t.to_dict() for t in value]
+        elif f.name in ("coefficients", "warnings"):
+            out[f.name] = [clean(vars(row)) for row in value]
+        elif f.name in ("quality", "diagnostics", "window", "pooled"):
+            out[f.name] = None if value is None else clean(vars(value))
+        else:
+            out[f.name] = clean(value)
+    return out
+
+
+def best_of(repeat: int, run: Any) -> float:
+    best = np.inf
+    for _ in range(repeat):
+        start = time.perf_counter()
+        run()
+        best = min(best, time.perf_counter() - start)
+    return float(best)
+
+
+@contextmanager
+def collector_paused(pause: bool) -> Iterator[None]:
+    """Pause the cyclic garbage collector (fit records hold no reference cycles)."""
+    if pause:
+        gc.disable()
+    try:
+        yield
+    finally:
+        if pause:
+            gc.enable()
+
+
+def nightly_like(
+    batches: list[list[History]], spec: ModelSpec, repeat: int, *, pause: bool
+) -> tuple[float, float]:
+    """Seconds in fit_many and in to_dict, batch by batch as the refit job does (best of R)."""
+    best_fit = best_dict = np.inf
+    for _ in range(repeat):
+        fit_s = dict_s = 0.0
+        for batch in batches:
+            # The job keeps a batch's records until they are written, then drops them.
+            with collector_paused(pause):
+                start = time.perf_counter()
+                fits = fit_many(batch, spec)
+                middle = time.perf_counter()
+                payloads = [f.to_dict() for f in fits if isinstance(f, DemandFit)]
+                fit_s += middle - start
+                dict_s += time.perf_counter() - middle
+                del fits, payloads
+        best_fit, best_dict = min(best_fit, fit_s), min(best_dict, dict_s)
+    return float(best_fit), float(best_dict)
+
+
+def end_to_end(
+    design: np.ndarray, response: np.ndarray, args: argparse.Namespace, rates: dict[str, float]
+) -> None:
+    """Time fit_many and to_dict on History objects, with same-run baselines."""
+    hist = histories(design, response)
+    spec = ModelSpec(
+        form="log-log",
+        covariates=("cross_a", "cross_b", "rival", "ads", "promo", "holiday", "weeks"),
+        log_covariates=("cross_a", "cross_b", "rival", "ads"),
+        standard_errors=args.standard_errors,
+    )
+    n = len(hist)
+    batches = [hist[i : i + args.batch] for i in range(0, n, args.batch)]
+    fit_many(batches[0], spec)  # warm up
+    if args.freeze_heap:
+        gc.collect()
+        gc.freeze()
+    as_is = nightly_like(batches, spec, args.repeat, pause=False)
+    paused = nightly_like(batches, spec, args.repeat, pause=True)
+    records = [f for f in fit_many(batches[0], spec) if isinstance(f, DemandFit)]
+    with collector_paused(True):
+        repeat = max(args.repeat, 5)  # one batch only: more runs for a steady best
+        dict_s = best_of(repeat, lambda: [f.to_dict() for f in records])
+        generic_s = best_of(repeat, lambda: [field_by_field(f) for f in records])
+    sample = hist[: args.single_sample]
+    singles: list[DemandFit] = []
+    single_s = best_of(1, lambda: singles.extend(fit_demand(h, spec) for h in sample))
+    single_rate = len(sample) / single_s
+    worst = max(
+        float(np.max(np.abs(f.params - s.params) / np.array([c.std_error for c in s.coefficients])))
+        for f, s in zip(records, singles, strict=False)
+    )
+    if args.freeze_heap:
+        gc.unfreeze()
+
+    print(
+        f"\nend to end, {n} products in batches of {args.batch}, {args.standard_errors} standard "
+        f"errors{', start-up heap frozen' if args.freeze_heap else ''} (products/s):"
+    )
+    print("                                     collector as is   paused per batch")
+    for label, (a, b) in (
+        ("fit_many (complete fit records)", (n / as_is[0], n / paused[0])),
+        ("to_dict of every record", (n / as_is[1], n / paused[1])),
+        ("fit_many + to_dict", (n / sum(as_is), n / sum(paused))),
+    ):
+        print(f"  {label:33s} {a:12.0f} {b:18.0f}")
+    print(f"  array core with all diagnostics   {rates['core']:12.0f}")
+    print(f"  statsmodels loop                  {rates['loop']:12.0f}")
+    print(f"  fit_demand, one by one            {single_rate:12.0f}   (timed on {len(sample)})")
+    print(
+        f"  to_dict {len(records) / dict_s:.0f}/s against the field-by-field serialisation "
+        f"{len(records) / generic_s:.0f}/s, both with the collector paused: "
+        f"{generic_s / dict_s:.1f}x"
+    )
+    print(
+        f"  fit_many + to_dict as is: {n / sum(as_is) / rates['loop']:.1f}x the statsmodels "
+        f"loop, {n / sum(as_is) / rates['core']:.2f}x the array core; fit_many "
+        f"{n / as_is[0] / single_rate:.0f}x fit_demand one by one"
+    )
+    print(f"  fit_many vs fit_demand, max |difference| / std. error: {worst:.1e}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--products", type=int, default=10_000)
     parser.add_argument("--repeat", type=int, default=3, help="batched timing: best of R runs")
-    parser.add_argument("--end-to-end", action="store_true", help="also time fit_many")
+    parser.add_argument("--end-to-end", action="store_true", help="also time fit_many, to_dict")
+    parser.add_argument("--batch", type=int, default=500, help="products per fit_many call")
+    parser.add_argument("--standard-errors", default="hc3", choices=("hc3", "classical", "hac"))
+    parser.add_argument("--single-sample", type=int, default=300, help="fit_demand baseline size")
+    parser.add_argument("--freeze-heap", action="store_true", help="gc.freeze() before timing")
     args = parser.parse_args()
 
     design, response = make_arrays(args.products)
@@ -137,20 +278,8 @@ def main() -> None:
     print(f"rank-deficient products flagged: {stack.rank_deficient.size}")
 
     if args.end_to_end:
-        hist = histories(design, response)
-        spec = ModelSpec(
-            form="log-log",
-            covariates=("cross_a", "cross_b", "rival", "ads", "promo", "holiday", "weeks"),
-            log_covariates=("cross_a", "cross_b", "rival", "ads"),
-            standard_errors="classical",
-        )
-        start = time.perf_counter()
-        fits = fit_many(hist, spec, holdout_periods=0)
-        e2e_s = time.perf_counter() - start
-        print(
-            f"fit_many end to end (designs, fits, records): {e2e_s:8.3f} s  "
-            f"{len(fits) / e2e_s:10.0f} products/s  ({base_s / e2e_s:.1f}x the loop)"
-        )
+        rates = {"core": args.products / full_s, "loop": args.products / base_s}
+        end_to_end(design, response, args, rates)
 
 
 if __name__ == "__main__":

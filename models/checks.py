@@ -6,11 +6,13 @@ inform the analyst and the service's quality gates.
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from typing import Final
 
 import numpy as np
 
+from models._typing import FloatArray
 from models.design import Design, Term
 from models.estimate import Estimate
 from models.result import FitWarning
@@ -46,30 +48,68 @@ VIF_LIMIT: Final = 10.0  # common practice (often attributed to Marquardt 1970)
 WEAK_INSTRUMENT_F: Final = 10.0  # Staiger & Stock (1997) rule of thumb
 
 
+def price_variation(price: FloatArray) -> float:
+    """Coefficient of variation of the own price (0 when its mean is not positive)."""
+    mean = np.mean(price)
+    return float(np.std(price) / mean) if mean > 0 else 0.0
+
+
 def fit_warnings(
     design: Design, estimate: Estimate, dropped: Sequence[Term] = ()
 ) -> tuple[FitWarning, ...]:
     """All warnings that apply to a fit of ``design``."""
-    found: list[FitWarning] = []
     own = [t.kind for t in design.terms].index("own_price")
-    coef = float(estimate.params[own])
-    p_value = float(estimate.pvalues()[own])
-    if coef > 0.0:
+    return warnings_from_figures(
+        form=design.form,
+        terms=design.terms,
+        own_coef=float(estimate.params[own]),
+        own_p_value=float(estimate.pvalues()[own]),
+        n_obs=design.n_usable,
+        price_cv=price_variation(design.variables["price"][design.usable]),
+        vifs=estimate.vif.tolist(),
+        n_stockouts=design.n_stockouts,
+        n_window=design.n_window,
+        n_zero_dropped=design.n_zero_dropped,
+        n_missing=design.n_missing,
+        dropped=dropped,
+        first_stage_f=estimate.first_stage_f,
+    )
+
+
+def warnings_from_figures(
+    *,
+    form: str,
+    terms: Sequence[Term],
+    own_coef: float,
+    own_p_value: float,
+    n_obs: int,
+    price_cv: float,
+    vifs: Sequence[float],
+    n_stockouts: int,
+    n_window: int,
+    n_zero_dropped: int,
+    n_missing: int,
+    dropped: Sequence[Term] = (),
+    first_stage_f: float | None = None,
+) -> tuple[FitWarning, ...]:
+    """The warnings of a fit, from its figures (``vifs`` in term order, NaN where none)."""
+    found: list[FitWarning] = []
+    if own_coef > 0.0:
         found.append(
             FitWarning(
                 OWN_PRICE_POSITIVE,
-                f"The own-price coefficient is positive ({coef:.3g}): demand appears to rise with "
-                "price, which usually signals a missing driver or price endogeneity.",
+                f"The own-price coefficient is positive ({own_coef:.3g}): demand appears to rise "
+                "with price, which usually signals a missing driver or price endogeneity.",
             )
         )
-    if not p_value < SIGNIFICANCE:
+    if not own_p_value < SIGNIFICANCE:
         found.append(
             FitWarning(
                 OWN_PRICE_NOT_SIGNIFICANT,
-                f"The own-price effect is not significant at 5% (p = {p_value:.3g}).",
+                f"The own-price effect is not significant at 5% (p = {own_p_value:.3g}).",
             )
         )
-    n_obs, n_terms = design.n_usable, len(design.terms)
+    n_terms = len(terms)
     if n_obs < MIN_OBS_PER_TERM * n_terms:
         found.append(
             FitWarning(
@@ -78,20 +118,18 @@ def fit_warnings(
                 f"fewer than {MIN_OBS_PER_TERM} per term.",
             )
         )
-    price = design.variables["price"][design.usable]
-    variation = float(np.std(price) / np.mean(price)) if np.mean(price) > 0 else 0.0
-    if variation < MIN_PRICE_CV:
+    if price_cv < MIN_PRICE_CV:
         found.append(
             FitWarning(
                 LOW_PRICE_VARIATION,
-                f"The price varied little (coefficient of variation {variation:.2%}), so its "
+                f"The price varied little (coefficient of variation {price_cv:.2%}), so its "
                 "effect is poorly determined.",
             )
         )
     high = [
         f"{t.name} ({v:.1f})"
-        for t, v in zip(design.terms, estimate.vif, strict=True)
-        if np.isfinite(v) and v > VIF_LIMIT
+        for t, v in zip(terms, vifs, strict=True)
+        if math.isfinite(v) and v > VIF_LIMIT
     ]
     if high:
         found.append(
@@ -99,28 +137,28 @@ def fit_warnings(
                 HIGH_VIF, f"Variance inflation factor above {VIF_LIMIT:g}: {', '.join(high)}."
             )
         )
-    if design.n_stockouts:
-        share = design.n_stockouts / design.n_window
+    if n_stockouts:
+        share = n_stockouts / n_window
         found.append(
             FitWarning(
                 STOCKOUTS_EXCLUDED,
-                f"{design.n_stockouts} out-of-stock periods ({share:.0%} of the window) were "
+                f"{n_stockouts} out-of-stock periods ({share:.0%} of the window) were "
                 "excluded because their sales understate demand.",
             )
         )
-    if design.n_zero_dropped:
+    if n_zero_dropped:
         found.append(
             FitWarning(
                 ZERO_UNITS_DROPPED,
-                f"{design.n_zero_dropped} zero-unit periods were dropped because the {design.form} "
+                f"{n_zero_dropped} zero-unit periods were dropped because the {form} "
                 "form takes the log of units; the poisson form keeps them.",
             )
         )
-    if design.n_missing:
+    if n_missing:
         found.append(
             FitWarning(
                 MISSING_VALUES_DROPPED,
-                f"{design.n_missing} periods were left out because a value the model needs "
+                f"{n_missing} periods were left out because a value the model needs "
                 "is missing.",
             )
         )
@@ -133,11 +171,11 @@ def fit_warnings(
                 f"{names}.",
             )
         )
-    if estimate.first_stage_f is not None and estimate.first_stage_f < WEAK_INSTRUMENT_F:
+    if first_stage_f is not None and first_stage_f < WEAK_INSTRUMENT_F:
         found.append(
             FitWarning(
                 WEAK_INSTRUMENT,
-                f"First-stage F is {estimate.first_stage_f:.3g}, below {WEAK_INSTRUMENT_F:g}: the "
+                f"First-stage F is {first_stage_f:.3g}, below {WEAK_INSTRUMENT_F:g}: the "
                 "instruments are weak and the corrected price effect is unreliable.",
             )
         )
@@ -146,12 +184,11 @@ def fit_warnings(
 
 def equation_text(form: str, terms: Sequence[Term], params: Sequence[float]) -> str:
     """The fitted equation with signs kept, e.g. ``ln(units) = 3.2 - 1.8 ln(price) + 0.4 promo``."""
-    body = f"{params[0]:.4g}"
+    parts = [f"{params[0]:.4g}"]
     for term, value in zip(terms[1:], params[1:], strict=True):
-        if not np.isfinite(value):
-            continue
-        sign = "-" if value < 0 else "+"
-        body += f" {sign} {abs(value):.4g} {term.name}"
+        if math.isfinite(value):
+            parts.append(f"{'-' if value < 0 else '+'} {abs(value):.4g} {term.name}")
+    body = " ".join(parts)
     if form == "linear":
         return f"units = {body}"
     if form == "poisson":

@@ -159,7 +159,10 @@ def fixed_terms(spec: ModelSpec) -> list[Term]:
 
 
 def fixed_columns(periods: DateArray, terms: list[Term]) -> FloatArray:
-    """Seasonal dummies / harmonics and the trend (years since 2000-01-01) for given dates."""
+    """Seasonal dummies / harmonics and the trend (years since 2000-01-01) for given dates.
+
+    ``periods`` may have any shape; the columns are added as a last axis.
+    """
     days = (periods.astype("datetime64[D]") - TREND_ORIGIN).astype(np.float64)
     months = periods.astype("datetime64[M]").astype(np.int64) % 12 + 1
     cols = []
@@ -171,7 +174,7 @@ def fixed_columns(periods: DateArray, terms: list[Term]) -> FloatArray:
             cols.append(np.sin(angle) if term.name.startswith("sin") else np.cos(angle))
         else:
             cols.append(days / DAYS_PER_YEAR)
-    return np.stack(cols, axis=1) if cols else np.empty((periods.shape[0], 0))
+    return np.stack(cols, axis=-1) if cols else np.empty((*periods.shape, 0))
 
 
 def _variable_values(history: History, source: str, kind: str) -> FloatArray:

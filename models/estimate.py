@@ -203,7 +203,7 @@ def fit_poisson(
         f_p_value=_opt(stats.f.sf(f_stat, k - 1, df_resid)),
         sigma=float(np.sqrt(np.sum(pearson**2) / df_resid)),
         aic=-2.0 * llf + 2.0 * k,
-        bic=-2.0 * llf + np.log(n) * k,
+        bic=-2.0 * llf + float(np.log(n)) * k,
         vif=vif,
         condition_number=condition,
         durbin_watson=_opt(durbin_watson(pearson[None])[0]),

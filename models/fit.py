@@ -1,25 +1,28 @@
 """Fit demand models: one product (:func:`fit_demand`) or many sharing a spec (:func:`fit_many`).
 
-Both paths produce identical statistics; the batched one solves all products of
-equal history length as one stack. Reported coefficients always use every
-usable period; ``holdout_wape`` comes from a separate fit that leaves out the
-last periods and predicts them.
+Both paths produce the same figures: the batched one fits the least-squares forms of
+all products with equal window length as stacks (:mod:`models.batch`) and every other
+product as :func:`fit_demand` does. Reported coefficients always use every usable
+period; ``holdout_wape`` comes from a separate fit that leaves out the last periods and
+predicts them (:mod:`models.holdout`).
 """
 
 from __future__ import annotations
 
 import math
+from collections import defaultdict
 from collections.abc import Mapping, Sequence
-from typing import Final
 
 import numpy as np
 
+from models.batch import fit_stacked, stacked_path_applies
 from models.checks import equation_text, fit_warnings
-from models.design import Design, build_design
-from models.engine import FittedDesign, check_size, fit_design, fit_designs, head, required_obs
+from models.design import build_design
+from models.engine import FittedDesign, check_size, fit_design
 from models.errors import InsufficientDataError
-from models.forecast import expected_units, smearing_factor, wape
+from models.forecast import smearing_factor
 from models.history import History
+from models.holdout import holdout_size, holdout_wapes
 from models.result import (
     Coefficient,
     DataWindow,
@@ -30,49 +33,6 @@ from models.result import (
 )
 from models.select import choose_form, score_forms
 from models.spec import LOG_RESPONSE_FORMS, ModelSpec
-
-DEFAULT_HOLDOUT: Final = 13
-"""Periods held out for ``holdout_wape`` by default (a quarter of weekly data).
-
-Never more than a quarter of the rows."""
-
-
-def _holdout_size(design: Design, requested: int | None) -> int:
-    rows = design.regressors.shape[0]
-    need = required_obs(len(design.terms))
-    if requested is None:
-        size = min(DEFAULT_HOLDOUT, rows // 4)
-        return size if size > 0 and int(design.usable[: rows - size].sum()) >= need else 0
-    if requested < 0:
-        raise ValueError("holdout_periods must not be negative")
-    if requested and int(design.usable[: max(rows - requested, 0)].sum()) < need:
-        raise InsufficientDataError(
-            design.sku,
-            int(design.usable[: max(rows - requested, 0)].sum()),
-            need,
-            f"after holding out the last {requested} periods",
-        )
-    return requested
-
-
-def _holdout_wapes(
-    designs: Sequence[Design], sizes: Sequence[int], spec: ModelSpec
-) -> list[float | None]:
-    members = [i for i, h in enumerate(sizes) if h > 0]
-    out: list[float | None] = [None] * len(designs)
-    train = [head(designs[i], designs[i].regressors.shape[0] - sizes[i]) for i in members]
-    for i, result in zip(members, fit_designs(train, spec), strict=True):
-        if not isinstance(result, FittedDesign):
-            continue
-        design, start = designs[i], designs[i].regressors.shape[0] - sizes[i]
-        smearing = (
-            smearing_factor(result.estimate.resid) if design.form in LOG_RESPONSE_FORMS else None
-        )
-        rows = design.regressors[start:][:, list(result.kept)]
-        predicted = expected_units(design.form, rows, result.estimate.params, smearing)
-        score = wape(design.units[start:], predicted)
-        out[i] = score if np.isfinite(score) else None
-    return out
 
 
 def _assemble(
@@ -108,11 +68,11 @@ def _assemble(
     names = [t.name for t in design.terms]
     log_form = design.form in LOG_RESPONSE_FORMS
     price = design.variables["price"][usable]
-    var_names = list(design.variables)
-    var_values = np.column_stack([design.variables[k][usable] for k in var_names])
-    var_means = dict(zip(var_names, var_values.mean(axis=0).tolist(), strict=True))
-    var_latest = dict(zip(var_names, var_values[-1].tolist(), strict=True))
-    col_means = x.mean(axis=0).tolist()
+    var_values = {k: v[usable] for k, v in design.variables.items()}
+    var_means = {k: float(v.mean()) for k, v in var_values.items()}
+    var_latest = {k: float(v[-1]) for k, v in var_values.items()}
+    # Summed along contiguous rows, as the batched path does, so both give the same digits.
+    col_means = np.ascontiguousarray(x.T).mean(axis=1).tolist()
     col_latest = x[-1].tolist()
     return DemandFit(
         sku=design.sku,
@@ -215,11 +175,23 @@ def fit_demand(
             raise scored
         scores = scored
         form = choose_form(scores)
+    return _fit_form(history, spec, form, holdout_periods=holdout_periods, scores=scores)
+
+
+def _fit_form(
+    history: History,
+    spec: ModelSpec,
+    form: str,
+    *,
+    holdout_periods: int | None,
+    scores: dict[str, float | None],
+) -> DemandFit:
+    """One product in a chosen form: the reference path every batched figure equals."""
     design = build_design(history, spec, form)
     check_size(design)
-    holdout = _holdout_size(design, holdout_periods)
+    holdout = holdout_size(design, holdout_periods)
     fitted = fit_design(design, spec)
-    holdout_wape = _holdout_wapes([design], [holdout], spec)[0] if holdout else None
+    holdout_wape = holdout_wapes([design], [holdout], spec)[0] if holdout else None
     return _assemble(
         fitted, spec, holdout_periods=holdout, holdout_wape=holdout_wape, candidate_scores=scores
     )
@@ -243,6 +215,12 @@ def fit_many(
     Statistics equal :func:`fit_demand`'s. A product that cannot be fitted becomes a
     :class:`FitFailure` and never stops the batch; rank-deficient terms are dropped
     per product and reported in that product's warnings.
+
+    The least-squares forms of products with the same window length are fitted
+    together as stacks of arrays (hold-out WAPE, diagnostics, warnings and records
+    included); products needing more care (exclusions that leave too few periods,
+    terms to drop, poisson, instruments) are fitted one by one. The cyclic garbage
+    collector is paused while the records are built (they hold no reference cycles).
 
     Parameters
     ----------
@@ -271,39 +249,30 @@ def fit_many(
                 scores[i] = scored
                 forms[i] = choose_form(scored)
 
-    designs: dict[int, Design] = {}
-    holdouts: dict[int, int] = {}
-    for i, history in enumerate(histories):
-        if results[i] is not None:
-            continue
-        try:
-            design = build_design(history, spec, forms[i])
-            check_size(design)
-            holdouts[i] = _holdout_size(design, holdout_periods)
-            designs[i] = design
-        except ValueError as error:
-            results[i] = _failure(history.sku, error)
-
-    for form in sorted(set(forms)):
-        members = [i for i in designs if forms[i] == form]
-        if not members:
-            continue
-        form_spec = spec if spec.form != "auto" else spec.with_form(form)
-        fitted = fit_designs([designs[i] for i in members], form_spec)
-        wapes = _holdout_wapes(
-            [designs[i] for i in members], [holdouts[i] for i in members], form_spec
-        )
-        for i, result, holdout_wape in zip(members, fitted, wapes, strict=True):
-            if isinstance(result, Exception):
-                results[i] = _failure(histories[i].sku, result)
-            else:
-                results[i] = _assemble(
-                    result,
-                    spec,
-                    holdout_periods=holdouts[i],
-                    holdout_wape=holdout_wape,
-                    candidate_scores=scores[i],
+    by_form: dict[str, list[int]] = defaultdict(list)
+    for i in range(n):
+        if results[i] is None:
+            by_form[forms[i]].append(i)
+    for form, members in by_form.items():
+        stacked: list[DemandFit | None] = [None] * len(members)
+        if stacked_path_applies(spec, form):
+            stacked = fit_stacked(
+                [histories[i] for i in members],
+                spec,
+                form,
+                holdout_periods=holdout_periods,
+                candidate_scores=[scores[i] for i in members],
+            )
+        for i, fit in zip(members, stacked, strict=True):
+            if fit is not None:
+                results[i] = fit
+                continue
+            try:
+                results[i] = _fit_form(
+                    histories[i], spec, form, holdout_periods=holdout_periods, scores=scores[i]
                 )
+            except (ValueError, np.linalg.LinAlgError) as error:
+                results[i] = _failure(histories[i].sku, error)
     final: list[DemandFit | FitFailure] = [r for r in results if r is not None]
     assert len(final) == n
     if spec.pooling == "family":

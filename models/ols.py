@@ -6,12 +6,17 @@ centred cross-product is scaled to unit diagonal before solving, which makes it 
 correlation matrix: Longley's design condition number drops from 5e9 to about
 1e2 (1.2e4 for the cross-product), so normal equations followed by one step of
 iterative refinement keep the certified digits while staying fully vectorised.
-``method="qr"`` solves the same centred, scaled system by Householder QR instead.
+``method="qr"`` solves the same centred, scaled system by Householder QR instead,
+factoring the centred regressors together with the centred response so that Q is
+never formed.
 
-Standard errors are computed in the centred coordinates, where the
+Classical standard errors are computed in the centred coordinates, where the
 cross-product matrix is block diagonal, and mapped back to the original
-coefficients with the exact linear transformation. Residual and design
-diagnostics are computed for the whole stack on first access.
+coefficients with the exact linear transformation; robust ones are the
+cross-products of each period's influence on the original coefficients. Residual
+and design diagnostics are computed for the whole stack on first access.
+Internally the centred regressors are held one row per column, (b, k - 1, n), so
+that element-wise work runs along whole periods.
 """
 
 from __future__ import annotations
@@ -71,6 +76,7 @@ class OLSStack:
     rank_deficient: IntArray
     _centred: FloatArray
     _means: FloatArray
+    _cross: FloatArray
     _cross_inv: FloatArray
 
     @cached_property
@@ -94,7 +100,7 @@ class OLSStack:
     @cached_property
     def vif(self) -> FloatArray:
         """Variance inflation factors (NaN for the intercept), as R's car::vif."""
-        cross_diag = np.einsum("bnj,bnj->bj", self._centred, self._centred)
+        cross_diag = np.diagonal(self._cross, axis1=1, axis2=2)
         inv_diag = np.diagonal(self._cross_inv, axis1=1, axis2=2)
         b = self.params.shape[0]
         return np.concatenate([np.full((b, 1), np.nan), cross_diag * inv_diag], axis=1)
@@ -113,7 +119,7 @@ class OLSStack:
         cross[:, 0, 0] = n
         cross[:, 0, 1:] = n * means
         cross[:, 1:, 0] = n * means
-        cross[:, 1:, 1:] = np.matmul(self._centred.transpose(0, 2, 1), self._centred)
+        cross[:, 1:, 1:] = self._cross
         cross[:, 1:, 1:] += n * means[:, :, None] * means[:, None, :]
         d = np.sqrt(np.diagonal(cross, axis1=1, axis2=2))
         eig = np.linalg.eigvalsh(cross / d[:, :, None] / d[:, None, :])
@@ -132,10 +138,10 @@ class OLSStack:
     @cached_property
     def breusch_pagan_p(self) -> FloatArray:
         """Koenker's studentised Breusch-Pagan test: n R^2 of resid^2 on the regressors."""
-        n, p = self._centred.shape[1], self._centred.shape[2]
+        p, n = self._centred.shape[1], self._centred.shape[2]
         e = self.resid**2
         ec = e - e.mean(axis=1, keepdims=True)
-        g = _tv(self._centred, ec)
+        g = _mv(self._centred, ec)
         explained = np.einsum("bj,bj->b", g, _mv(self._cross_inv, g))
         with np.errstate(divide="ignore", invalid="ignore"):
             lm = n * explained / np.einsum("bn,bn->b", ec, ec)
@@ -149,8 +155,8 @@ def _mv(a: FloatArray, v: FloatArray) -> FloatArray:
     return result
 
 
-def _tv(a: FloatArray, v: FloatArray) -> FloatArray:
-    """Batched ``a.T @ v`` for ``a`` (b, n, j) and ``v`` (b, n)."""
+def _vm(v: FloatArray, a: FloatArray) -> FloatArray:
+    """Batched vector-matrix product ``v @ a`` for ``v`` (b, i) and ``a`` (b, i, j)."""
     result: FloatArray = np.matmul(v[:, None, :], a)[:, 0, :]
     return result
 
@@ -210,6 +216,114 @@ def sandwich_meat(
     raise ValueError(f"unknown robust covariance {cov_type!r}")
 
 
+@dataclass(frozen=True)
+class _Solution:
+    """The least-squares solution of a stack in centred coordinates (shared by every caller).
+
+    ``centred`` holds one row per regressor, (b, p, n), so that element-wise work runs
+    along whole periods.
+    """
+
+    means: FloatArray
+    centred: FloatArray
+    scale: FloatArray
+    y_mean: FloatArray
+    yc: FloatArray
+    slopes: FloatArray
+    resid: FloatArray
+    cross: FloatArray
+    cross_inv: FloatArray
+    deficient: BoolArray
+
+    @property
+    def params(self) -> FloatArray:
+        b, p = self.slopes.shape
+        params = np.empty((b, p + 1))
+        params[:, 1:] = self.slopes
+        params[:, 0] = self.y_mean - np.einsum("bj,bj->b", self.means, self.slopes)
+        return params
+
+
+def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
+    """Centre, scale to unit diagonal and solve; flag (nearly) singular members."""
+    b, n, k = design.shape
+    p = k - 1
+    if p < 1 or n - k < 1:
+        raise ValueError(f"need at least one regressor and n > k; got n={n}, k={k}")
+    # One row per column: free when the caller built the design that way.
+    columns = np.ascontiguousarray(design.transpose(0, 2, 1))
+    means = columns[:, 1:, :].mean(axis=2)
+    # The centred regressors and the centred response share one array: the QR method
+    # factors them together.
+    augmented = np.empty((b, k, n))
+    centred = augmented[:, :p, :]
+    np.subtract(columns[:, 1:, :], means[:, :, None], out=centred)
+    cross = np.matmul(centred, centred.transpose(0, 2, 1))
+    scale = np.sqrt(np.diagonal(cross, axis1=1, axis2=2))
+    constant = ~(scale > 1e-13 * np.sqrt(n) * np.abs(means)) | (scale == 0.0)
+    bad = constant.any(axis=1) | ~np.isfinite(scale).all(axis=1)
+    if bad.any():
+        # Keep the stack solvable; flagged products are refitted without the bad terms.
+        centred[bad] = _placeholder_columns(n, p).T
+        cross[bad] = np.eye(p)
+        scale[bad] = 1.0
+    y_mean = response.mean(axis=1)
+    yc = augmented[:, p, :]
+    np.subtract(response, y_mean[:, None], out=yc)
+
+    if method == "normal":
+        gram = cross / scale[:, :, None] / scale[:, None, :]
+        gram_inv, singular = _safe_inverse(gram)
+        cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
+        slopes = _mv(cross_inv, _mv(centred, yc))
+        resid = yc - _vm(slopes, centred)
+        slopes = slopes + _mv(cross_inv, _mv(centred, resid))
+    elif method == "qr":
+        # Householder QR of [centred regressors | centred response]: the last column of R
+        # holds Q'y, so Q is never formed. Householder QR is column-scaling invariant, so
+        # R of the unit-length columns is R with its columns divided by their lengths.
+        r_aug: FloatArray = np.asarray(np.linalg.qr(augmented.transpose(0, 2, 1), mode="r"))
+        r = r_aug[:, :p, :p] / scale[:, None, :]
+        singular = np.abs(np.diagonal(r, axis1=1, axis2=2)).min(axis=1) <= 1e-14
+        r = np.where(singular[:, None, None], np.eye(p), r)
+        r_inv = _upper_inverse(r)
+        gram_inv = np.matmul(r_inv, r_inv.transpose(0, 2, 1))
+        cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
+        slopes = _mv(r_inv, r_aug[:, :p, p]) / scale
+    else:
+        raise ValueError(f"unknown method {method!r}")
+    resid = yc - _vm(slopes, centred)
+    vif_max = np.diagonal(gram_inv, axis1=1, axis2=2).max(axis=1)
+    bad = bad | singular | ~np.isfinite(vif_max) | (vif_max > RANK_VIF_LIMIT)
+    return _Solution(means, centred, scale, y_mean, yc, slopes, resid, cross, cross_inv, bad)
+
+
+def _upper_inverse(r: FloatArray) -> FloatArray:
+    """Inverses of a stack of upper-triangular matrices by back substitution, row by row."""
+    p = r.shape[1]
+    inverse = np.zeros_like(r)
+    diagonal = np.diagonal(r, axis1=1, axis2=2)
+    for i in range(p - 1, -1, -1):
+        row = -np.matmul(r[:, i : i + 1, i + 1 :], inverse[:, i + 1 :, :])[:, 0, :]
+        row[:, i] = 1.0
+        inverse[:, i, :] = row / diagonal[:, i : i + 1]
+    return inverse
+
+
+def fit_ols_params(
+    design: FloatArray, response: FloatArray, *, method: str = "normal"
+) -> tuple[FloatArray, FloatArray, IntArray]:
+    """Coefficients, residuals and rank-deficient members of a stack, without any statistics.
+
+    The figures are those of :func:`fit_ols_stack` with the same ``method`` (the
+    solution is shared), for callers that only predict, such as hold-out scoring.
+    """
+    solution = _solve(
+        np.asarray(design, dtype=np.float64), np.asarray(response, dtype=np.float64), method
+    )
+    return solution.params, solution.resid, np.flatnonzero(solution.deficient)
+
+
 def fit_ols_stack(
     design: FloatArray,
     response: FloatArray,
@@ -253,48 +367,14 @@ def fit_ols_stack(
     b, n, k = design.shape
     p = k - 1
     df_resid = n - k
-    if p < 1 or df_resid < 1:
-        raise ValueError(f"need at least one regressor and n > k; got n={n}, k={k}")
-    means = design[:, :, 1:].mean(axis=1)
-    centred = design[:, :, 1:] - means[:, None, :]
-    cross = np.matmul(centred.transpose(0, 2, 1), centred)
-    scale = np.sqrt(np.diagonal(cross, axis1=1, axis2=2))
-    constant = ~(scale > 1e-13 * np.sqrt(n) * np.abs(means)) | (scale == 0.0)
-    bad = constant.any(axis=1) | ~np.isfinite(scale).all(axis=1)
-    if bad.any():
-        # Keep the stack solvable; flagged products are refitted without the bad terms.
-        centred[bad] = _placeholder_columns(n, p)
-        cross[bad] = np.eye(p)
-        scale[bad] = 1.0
-    y_mean = response.mean(axis=1)
-    yc = response - y_mean[:, None]
-
-    if method == "normal":
-        gram = cross / scale[:, :, None] / scale[:, None, :]
-        gram_inv, singular = _safe_inverse(gram)
-        cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
-        slopes = _mv(cross_inv, _tv(centred, yc))
-        resid = yc - _mv(centred, slopes)
-        slopes = slopes + _mv(cross_inv, _tv(centred, resid))
-    elif method == "qr":
-        q, r = np.linalg.qr(centred / scale[:, None, :])
-        singular = np.abs(np.diagonal(r, axis1=1, axis2=2)).min(axis=1) <= 1e-14
-        r = np.where(singular[:, None, None], np.eye(p), r)
-        r_inv = np.linalg.inv(r)
-        gram_inv = np.matmul(r_inv, r_inv.transpose(0, 2, 1))
-        cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
-        slopes = _mv(r_inv, _tv(q, yc)) / scale
-    else:
-        raise ValueError(f"unknown method {method!r}")
-    resid = yc - _mv(centred, slopes)
-    vif_max = np.diagonal(gram_inv, axis1=1, axis2=2).max(axis=1)
-    bad = bad | singular | ~np.isfinite(vif_max) | (vif_max > RANK_VIF_LIMIT)
+    solution = _solve(design, response, method)
+    means, scale, slopes, resid = solution.means, solution.scale, solution.slopes, solution.resid
+    cross_inv = solution.cross_inv
 
     ssr = np.einsum("bn,bn->b", resid, resid)
-    tss = np.einsum("bn,bn->b", yc, yc)
+    tss = np.einsum("bn,bn->b", solution.yc, solution.yc)
     sigma2 = ssr / df_resid
 
-    # Covariance of theta = (intercept of the centred model, slopes).
     if cov_type == "classical":
         cov_slopes = sigma2[:, None, None] * cross_inv
         cov = np.empty((b, k, k))
@@ -304,10 +384,9 @@ def fit_ols_stack(
         cov[:, 1:, 0] = cross_term
         cov[:, 0, 0] = sigma2 / n + np.einsum("bj,bj->b", means, _mv(cov_slopes, means))
     else:
-        cov, cov_slopes = _robust_cov(centred, cross_inv, means, resid, cov_type, hac_lags)
-    params = np.empty((b, k))
-    params[:, 1:] = slopes
-    params[:, 0] = y_mean - np.einsum("bj,bj->b", means, slopes)
+        cov = _robust_cov(solution, cov_type, hac_lags)
+        cov_slopes = cov[:, 1:, 1:]
+    params = solution.params
     with np.errstate(divide="ignore", invalid="ignore"):
         bse = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
         tvalues = params / bse
@@ -318,7 +397,8 @@ def fit_ols_stack(
             # Wald test of all slopes, solved on the unit-diagonal scale for accuracy.
             scaled_slopes = slopes * scale
             scaled_cov = cov_slopes * scale[:, :, None] * scale[:, None, :]
-            f_stat = np.einsum("bj,bj->b", scaled_slopes, _solve(scaled_cov, scaled_slopes)) / p
+            wald = np.einsum("bj,bj->b", scaled_slopes, _solve_each(scaled_cov, scaled_slopes))
+            f_stat = wald / p
     return OLSStack(
         params=params,
         cov=cov,
@@ -334,45 +414,52 @@ def fit_ols_stack(
         f_stat=f_stat,
         f_p_value=special.fdtrc(p, df_resid, f_stat),
         sigma=np.sqrt(sigma2),
-        rank_deficient=np.flatnonzero(bad),
-        _centred=centred,
+        rank_deficient=np.flatnonzero(solution.deficient),
+        _centred=solution.centred,
         _means=means,
+        _cross=solution.cross,
         _cross_inv=cross_inv,
     )
 
 
 @np.errstate(divide="ignore", invalid="ignore", over="ignore")
-def _robust_cov(
-    centred: FloatArray,
-    cross_inv: FloatArray,
-    means: FloatArray,
-    resid: FloatArray,
-    cov_type: str,
-    hac_lags: int | None,
-) -> tuple[FloatArray, FloatArray]:
-    """Sandwich covariance of the original coefficients and of the slopes.
+def _robust_cov(solution: _Solution, cov_type: str, hac_lags: int | None) -> FloatArray:
+    """Sandwich covariance of the original coefficients from each period's influence.
 
+    Period t moves the slopes by ``inv(C'C) c_t psi_t`` and the centred intercept by
+    ``psi_t / n`` (``psi`` the residual, divided by ``1 - h`` for HC3); the original
+    intercept is ``a - means . slopes``. The covariance is the (Bartlett-weighted for
+    HAC) cross-product of these influences, the same sandwich as :func:`sandwich_meat`
+    between the bread, in square-root form.
     Periods with leverage 1 make the HC3 figures NaN (flagged downstream), never an error.
     """
-    b, n, p = centred.shape
+    centred, resid = solution.centred, solution.resid
+    b, p, n = centred.shape
     k = p + 1
-    w = np.concatenate([np.ones((b, n, 1)), centred], axis=2)
-    bread = np.zeros((b, k, k))
-    bread[:, 0, 0] = 1.0 / n
-    bread[:, 1:, 1:] = cross_inv
-    leverage = 1.0 / n + np.einsum("bnj,bnj->bn", np.matmul(centred, cross_inv), centred)
-    meat = sandwich_meat(w, resid, cov_type=cov_type, leverage=leverage, hac_lags=hac_lags)
-    cov_theta = np.matmul(np.matmul(bread, meat), bread)
-    # Back to the original coefficients: b0 = a - means . slopes.
-    transform = np.zeros((b, k, k))
-    transform[:, 0, 0] = 1.0
-    transform[:, 0, 1:] = -means
-    transform[:, 1:, 1:] = np.eye(p)
-    cov = np.matmul(np.matmul(transform, cov_theta), transform.transpose(0, 2, 1))
-    return 0.5 * (cov + cov.transpose(0, 2, 1)), cov_theta[:, 1:, 1:]
+    pull = np.matmul(solution.cross_inv, centred)
+    if cov_type == "hc3":
+        leverage = 1.0 / n + np.einsum("bjn,bjn->bn", pull, centred)
+        psi = resid / (1.0 - leverage)
+    elif cov_type == "hac":
+        psi = resid
+    else:
+        raise ValueError(f"unknown robust covariance {cov_type!r}")
+    influence = np.empty((b, k, n))
+    np.multiply(pull, psi[:, None, :], out=influence[:, 1:, :])
+    influence[:, 0, :] = psi / n - _vm(solution.means, influence[:, 1:, :])
+    cov = np.matmul(influence, influence.transpose(0, 2, 1))
+    if cov_type == "hac":
+        lags = newey_west_lags(n) if hac_lags is None else hac_lags
+        for lag in range(1, min(lags, n - 1) + 1):
+            weight = 1.0 - lag / (lags + 1.0)
+            cross = np.matmul(influence[:, :, lag:], influence[:, :, :-lag].transpose(0, 2, 1))
+            cov += weight * (cross + cross.transpose(0, 2, 1))
+        cov *= n / (n - k)
+    result: FloatArray = 0.5 * (cov + cov.transpose(0, 2, 1))
+    return result
 
 
-def _solve(matrices: FloatArray, vectors: FloatArray) -> FloatArray:
+def _solve_each(matrices: FloatArray, vectors: FloatArray) -> FloatArray:
     try:
         return np.asarray(np.linalg.solve(matrices, vectors[:, :, None])[:, :, 0], np.float64)
     except np.linalg.LinAlgError:

@@ -3,9 +3,13 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections import deque
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, fields
-from typing import Any
+from functools import partial
+from itertools import chain, repeat
+from operator import attrgetter, is_not, itemgetter, setitem
+from typing import Any, Final, TypeVar
 
 import numpy as np
 
@@ -28,6 +32,31 @@ def clean(value: Any) -> Any:
         value = float(value)
         return value if math.isfinite(value) else None
     return value
+
+
+_not_none = partial(is_not, None)
+_estimates = attrgetter("estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
+_vif = attrgetter("vif")
+
+
+def _numbers_ok(values: Iterable[Any]) -> bool:
+    """True when the values are plain Python numbers, all finite: what :func:`clean` keeps.
+
+    Checked through their sum: a numpy scalar anywhere makes it a numpy scalar, and NaN
+    or an infinity makes it non-finite (a finite overflow only sends the caller down
+    the slow path).
+    """
+    try:
+        total = sum(values)
+    except TypeError:
+        return False
+    kind = type(total)
+    return kind is int or (kind is float and total - total == 0.0)
+
+
+def _record(value: Any) -> Any:
+    """``clean(vars(value))`` for a record, None for None."""
+    return None if value is None else clean(vars(value))
 
 
 def _num(value: Any) -> float:
@@ -101,6 +130,16 @@ class DataWindow:
     n_zero_units_dropped: int
     n_missing_dropped: int
     holdout_periods: int
+
+
+_window_counts = itemgetter(
+    "n_obs",
+    "n_window",
+    "n_stockouts_excluded",
+    "n_zero_units_dropped",
+    "n_missing_dropped",
+    "holdout_periods",
+)
 
 
 @dataclass(frozen=True)
@@ -202,7 +241,66 @@ class DemandFit:
         return self.coefficients[[t.kind for t in self.terms].index("own_price")]
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-safe mapping (no NaN or infinity) that :meth:`from_dict` restores."""
+        """JSON-safe mapping (no NaN or infinity) that :meth:`from_dict` restores.
+
+        Keys follow the field order; tuples become lists, records dicts, and NaN or
+        infinities None (see :func:`clean`).
+        """
+        if not (vars(self).get(_PLAIN_NUMBERS) is True or self._numbers_are_plain()):
+            return self._to_dict_field_by_field()
+        # Every number is a plain finite Python number already: each part is a plain copy.
+        scores = self.candidate_scores
+        return {
+            "sku": self.sku,
+            "spec": self.spec.to_dict(),
+            "form": self.form,
+            "terms": list(map(Term.to_dict, self.terms)),
+            "coefficients": list(map(dict.copy, map(vars, self.coefficients))),
+            "covariance": list(map(list, self.covariance)),
+            "quality": vars(self.quality).copy(),
+            "diagnostics": vars(self.diagnostics).copy(),
+            "warnings": [clean(vars(w)) for w in self.warnings],
+            "equation": self.equation,
+            "df_resid": self.df_resid,
+            "use_t": self.use_t if type(self.use_t) is bool else clean(self.use_t),
+            "variable_means": dict(self.variable_means),
+            "variable_latest": dict(self.variable_latest),
+            "regressor_means": dict(self.regressor_means),
+            "regressor_latest": dict(self.regressor_latest),
+            "price_range": list(self.price_range),
+            "window": vars(self.window).copy(),
+            "smearing": self.smearing,
+            "candidate_scores": (
+                dict(scores) if _numbers_ok(filter(_not_none, scores.values())) else clean(scores)
+            ),
+            "pooled": _record(self.pooled),
+        }
+
+    def _numbers_are_plain(self) -> bool:
+        """Whether every number outside ``candidate_scores`` and ``pooled`` is a plain finite one.
+
+        One pass over all of them (see :func:`_numbers_ok`); the texts must be strings.
+        """
+        coefficients, window = self.coefficients, vars(self.window)
+        numbers = chain(
+            chain.from_iterable(map(_estimates, coefficients)),
+            filter(_not_none, map(_vif, coefficients)),
+            chain.from_iterable(self.covariance),
+            filter(_not_none, vars(self.quality).values()),
+            filter(_not_none, vars(self.diagnostics).values()),
+            self.variable_means.values(),
+            self.variable_latest.values(),
+            self.regressor_means.values(),
+            self.regressor_latest.values(),
+            self.price_range,
+            (self.df_resid, 0.0 if self.smearing is None else self.smearing),
+            _window_counts(window),
+        )
+        texts = (self.sku, self.form, self.equation, window["first_period"], window["last_period"])
+        return _numbers_ok(numbers) and all(map(str.__instancecheck__, texts))
+
+    def _to_dict_field_by_field(self) -> dict[str, Any]:
+        """:meth:`to_dict` the long way: every value through :func:`clean`."""
         out: dict[str, Any] = {}
         for f in fields(self):
             value = getattr(self, f.name)
@@ -213,7 +311,7 @@ class DemandFit:
             elif f.name in ("coefficients", "warnings"):
                 out[f.name] = [clean(vars(row)) for row in value]
             elif f.name in ("quality", "diagnostics", "window", "pooled"):
-                out[f.name] = None if value is None else clean(vars(value))
+                out[f.name] = _record(value)
             else:
                 out[f.name] = clean(value)
         return out
@@ -290,3 +388,60 @@ class FitFailure:
 
     def to_dict(self) -> dict[str, Any]:
         return dict(clean(vars(self)))
+
+
+_PLAIN_NUMBERS: Final = "_plain_numbers"
+"""Instance-dictionary note (never a field) on a :class:`DemandFit` built in bulk whose
+numbers, outside ``candidate_scores`` and ``pooled``, are all plain finite Python numbers
+or None: :meth:`DemandFit.to_dict` then skips its scan. Records are frozen, so the note
+stays true; copies made with ``dataclasses.replace`` do not carry it."""
+
+
+def note_plain_numbers(fits: Iterable[DemandFit]) -> None:
+    """Note on each of ``fits`` that its numbers are plain and finite (see ``_PLAIN_NUMBERS``).
+
+    Only for builders that know it, e.g. from a vectorised check of the arrays they
+    filled the records from.
+    """
+    for fit in fits:
+        vars(fit)[_PLAIN_NUMBERS] = True
+
+
+R = TypeVar("R")
+
+
+def build_records(
+    cls: type[R],
+    count: int,
+    varying: Mapping[str, Sequence[Any]],
+    fixed: Mapping[str, Any] | None = None,
+) -> list[R]:
+    """``count`` instances of the frozen dataclass ``cls``, built field by field.
+
+    ``varying`` gives each of its fields' values for all instances in order; ``fixed``
+    the values all instances share; together they name every field. ``cls(...)``
+    would assign each field through ``object.__setattr__`` in Python; batches build
+    hundreds of thousands of records, so here every instance dictionary is a copy of
+    one template (fields in order) filled column by column, all in the interpreter's
+    builtins. Only for classes without ``__post_init__``: the instances then equal
+    those ``__init__`` builds.
+    """
+    names = [f.name for f in fields(cls)]  # type: ignore[arg-type]
+    fixed = fixed or {}
+    if sorted(names) != sorted([*varying, *fixed]):
+        raise ValueError(f"{cls.__name__} needs each of its fields exactly once: {names}")
+    if any(len(values) != count for values in varying.values()):
+        raise ValueError(f"every varying {cls.__name__} field needs {count} values")
+    # The template is the dictionary of an instance, so that its copies share the class's
+    # key table as instance dictionaries do (half the memory, quicker to copy and fill).
+    prototype = cls(*(fixed.get(name) for name in names))
+    dicts = list(map(dict.copy, repeat(vars(prototype), count)))
+    for name, values in varying.items():
+        deque(map(setitem, dicts, repeat(name), values), maxlen=0)
+    instances: list[R] = list(map(_new_instance, repeat(cls, count)))
+    deque(map(_set_attribute, instances, repeat("__dict__"), dicts), maxlen=0)
+    return instances
+
+
+_new_instance: Any = object.__new__
+_set_attribute = object.__setattr__

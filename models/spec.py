@@ -140,11 +140,10 @@ class ModelSpec:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready mapping (lists for tuples) that :meth:`from_dict` accepts."""
-        out: dict[str, Any] = {}
-        for f in fields(self):
-            value = getattr(self, f.name)
-            out[f.name] = list(value) if isinstance(value, tuple) else value
-        return out
+        return {
+            name: list(value) if isinstance(value, tuple) else value
+            for name, value in vars(self).items()
+        }
 
     def with_form(self, form: str) -> ModelSpec:
         """The same spec with another form (used when ``auto`` has chosen)."""
