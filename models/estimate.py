@@ -129,7 +129,8 @@ def _sandwich(
         leverage=None if leverage is None else leverage[None],
         hac_lags=hac_lags,
     )[0]
-    result: FloatArray = bread @ meat @ bread
+    with np.errstate(invalid="ignore"):  # a NaN meat (see sandwich_meat) stays NaN
+        result: FloatArray = bread @ meat @ bread
     return 0.5 * (result + result.T)
 
 

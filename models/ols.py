@@ -199,9 +199,9 @@ def sandwich_meat(
             # A period with leverage 1 (a flag set in one period only) has no HC3 weight:
             # the figures that depend on it become NaN rather than a misleading number.
             omega = resid**2 / (1.0 - leverage) ** 2
-        meat_hc3: FloatArray = np.matmul(
-            scores_design.transpose(0, 2, 1), scores_design * omega[:, :, None]
-        )
+            meat_hc3: FloatArray = np.matmul(
+                scores_design.transpose(0, 2, 1), scores_design * omega[:, :, None]
+            )
         return meat_hc3
     if cov_type == "hac":
         lags = newey_west_lags(n) if hac_lags is None else hac_lags
