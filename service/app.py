@@ -6,20 +6,23 @@ import datetime as dt
 import logging
 import time
 import uuid
-from collections.abc import AsyncIterator, Awaitable, Callable
+from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
-from fastapi import FastAPI, Request, Response
+from fastapi import FastAPI, Request
 from fastapi.middleware.cors import CORSMiddleware
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import DBAPIError, IntegrityError, OperationalError, SQLAlchemyError
 from sqlalchemy.exc import TimeoutError as PoolTimeout
+from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
 from service import logs, metrics, schedules, ui
+from service import pricing as pricing_service
 from service.api import fits, health, imports, jobs, keys, observations, pricing, products
 from service.api import metrics as metrics_route
 from service.db import make_engine, make_session_factory
 from service.errors import install_error_handlers, problem_response
+from service.group_commit import GroupWriter
 from service.limits import BodySizeLimit
 from service.settings import Settings, get_settings
 from service.worker import JobRunner, Worker
@@ -67,6 +70,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.read_sessions = make_session_factory(engine, writer=False)
     app.state.write_sessions = make_session_factory(engine, writer=True)
     app.state.bulk_sessions = make_session_factory(engine, writer=True, bulk_load=True)
+    app.state.recommendation_writer = GroupWriter(app.state.write_sessions, pricing_service.store)
 
     install_error_handlers(app)
     _install_database_outage_handler(app)
@@ -84,7 +88,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             allow_headers=["Authorization", "Content-Type", "X-Request-ID"],
             expose_headers=["X-Request-ID", "Retry-After", "ETag"],
         )
-    app.middleware("http")(_observe_request)
+    app.add_middleware(RequestObserver)
     for router in (
         health.router,
         metrics_route.router,
@@ -123,37 +127,66 @@ def _start_background(app: FastAPI, settings: Settings) -> list[Worker | schedul
     return threads
 
 
-async def _observe_request(
-    request: Request, call_next: Callable[[Request], Awaitable[Response]]
-) -> Response:
-    """Request id, one structured log line and metrics per request (never the key itself)."""
-    request_id = request.headers.get("x-request-id") or uuid.uuid4().hex
-    request.state.request_id = request_id
-    token = logs.request_id.set(request_id)
-    started = time.perf_counter()
-    try:
-        response = await call_next(request)
-    finally:
-        logs.request_id.reset(token)
-    elapsed = time.perf_counter() - started
-    route = getattr(request.scope.get("route"), "path", "unmatched")
-    metrics.record_request(request.method, route, response.status_code, elapsed)
-    access_log.info(
-        "%s %s %s",
-        request.method,
-        route,
-        response.status_code,
-        extra={
-            "request_id": request_id,
-            "method": request.method,
-            "path": request.url.path,
-            "status": response.status_code,
-            "duration_ms": round(elapsed * 1000, 2),
-            "key_id": getattr(request.state, "key_id", None),
-        },
-    )
-    response.headers["X-Request-ID"] = request_id
-    return response
+class RequestObserver:
+    """Request id, one structured log line and metrics per request (never the key itself).
+
+    A plain ASGI middleware: Starlette's ``BaseHTTPMiddleware`` would relay every body
+    through extra tasks and streams, which costs more than the rest of a small request.
+    """
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        request_id = _header(scope, b"x-request-id") or uuid.uuid4().hex
+        state = scope.setdefault("state", {})
+        state["request_id"] = request_id
+        status = 500
+        token = logs.request_id.set(request_id)
+        started = time.perf_counter()
+
+        async def send_with_id(message: Message) -> None:
+            nonlocal status
+            if message["type"] == "http.response.start":
+                status = message["status"]
+                message["headers"] = [
+                    *message.get("headers", []),
+                    (b"x-request-id", request_id.encode("latin-1")),
+                ]
+            await send(message)
+
+        try:
+            await self.app(scope, receive, send_with_id)
+        finally:
+            logs.request_id.reset(token)
+            elapsed = time.perf_counter() - started
+            method = scope["method"]
+            route = getattr(scope.get("route"), "path", "unmatched")
+            metrics.record_request(method, route, status, elapsed)
+            access_log.info(
+                "%s %s %s",
+                method,
+                route,
+                status,
+                extra={
+                    "request_id": request_id,
+                    "method": method,
+                    "path": scope["path"],
+                    "status": status,
+                    "duration_ms": round(elapsed * 1000, 2),
+                    "key_id": state.get("key_id"),
+                },
+            )
+
+
+def _header(scope: Scope, name: bytes) -> str | None:
+    for key, value in scope.get("headers") or ():
+        if key == name:
+            return str(value.decode("latin-1"))
+    return None
 
 
 def _install_database_outage_handler(app: FastAPI) -> None:

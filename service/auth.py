@@ -11,6 +11,8 @@ import datetime as dt
 import hashlib
 import hmac
 import secrets
+import threading
+import time
 from dataclasses import dataclass
 from typing import Literal
 
@@ -73,7 +75,47 @@ def revoke_key(session: Session, *, key_id: str) -> ApiKeyRow:
         raise NotFound(f"no API key with id {key_id!r}")
     if row.revoked_at is None:
         row.revoked_at = utcnow()
+    verified_keys.forget(key_id)
     return row
+
+
+class VerifiedKeys:
+    """Keys this process verified against the database moments ago.
+
+    Every authenticated request would otherwise spend a database round trip on the key;
+    within ``ttl`` seconds of a lookup the answer is reused. Entries are keyed by the
+    database and a hash of the whole ``Authorization`` value (never the secret itself),
+    so a wrong secret never matches. Revoking a key forgets it here at once; another
+    process's copy lapses within ``ttl``.
+    """
+
+    _MAX_ENTRIES = 10_000
+
+    def __init__(self) -> None:
+        self._items: dict[tuple[str, str], tuple[float, Principal]] = {}
+        self._lock = threading.Lock()
+
+    def get(self, database: str, authorization: str, ttl: float) -> Principal | None:
+        entry = self._items.get((database, hash_secret(authorization)))
+        if entry is None or time.monotonic() - entry[0] >= ttl:
+            return None
+        return entry[1]
+
+    def put(self, database: str, authorization: str, principal: Principal) -> None:
+        now = time.monotonic()
+        with self._lock:
+            if len(self._items) >= self._MAX_ENTRIES:
+                self._items.clear()  # rare, and the next lookups refill it
+            self._items[(database, hash_secret(authorization))] = (now, principal)
+
+    def forget(self, key_id: str) -> None:
+        with self._lock:
+            for item, (_, principal) in list(self._items.items()):
+                if principal.key_id == key_id:
+                    del self._items[item]
+
+
+verified_keys = VerifiedKeys()
 
 
 def parse_token(token: str) -> tuple[str, str] | None:

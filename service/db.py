@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import Engine, create_engine, event
+from sqlalchemy import Connection, Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.settings import Settings
@@ -24,15 +25,25 @@ def make_engine(settings: Settings) -> Engine:
                 "timeout": settings.sqlite_busy_timeout_ms / 1000,
                 "check_same_thread": False,
             },
+            pool_size=settings.database_pool_size,
         )
+        queue = _WriterQueue(settings.sqlite_busy_timeout_ms / 1000)
         event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
-        event.listen(engine, "begin", _sqlite_on_begin)
-        event.listen(engine.pool, "checkin", _sqlite_on_checkin)
+        event.listen(engine, "begin", _sqlite_on_begin(queue))
+        for name in ("commit", "rollback"):
+            event.listen(engine, name, queue.leave)
+        event.listen(engine.pool, "reset", queue.on_reset)
+        event.listen(engine.pool, "checkin", _sqlite_on_checkin(queue))
         return engine
     connect_args: dict[str, Any] = {}
     if settings.database_schema:
         connect_args["options"] = f"-csearch_path={settings.database_schema}"
-    return create_engine(url, connect_args=connect_args, pool_pre_ping=True, pool_size=10)
+    return create_engine(
+        url,
+        connect_args=connect_args,
+        pool_pre_ping=True,
+        pool_size=settings.database_pool_size,
+    )
 
 
 def _ensure_sqlite_folder(url: str) -> None:
@@ -55,24 +66,76 @@ def _sqlite_on_connect(busy_timeout_ms: int) -> Any:
     return on_connect
 
 
-def _sqlite_on_begin(conn: Any) -> None:
-    # Writers take the write lock at BEGIN: a transaction that reads and then writes
-    # cannot fail on lock upgrade, and busy_timeout makes concurrent writers wait
-    # instead of failing with "database is locked". Readers stay deferred (WAL).
-    options = conn.get_execution_options()
-    if options.get("bulk_load"):
-        # Bulk loads resolve every product id inside their own write-locked
-        # transaction, so per-row foreign-key checks (a third of an import's write
-        # time) can prove nothing; checkin turns them back on.
-        conn.exec_driver_sql("PRAGMA foreign_keys=OFF")
-    if options.get("writer"):
-        conn.exec_driver_sql("BEGIN IMMEDIATE")
-    else:
-        conn.exec_driver_sql("BEGIN")
+_FOREIGN_KEYS_OFF = "marginal_foreign_keys_off"
 
 
-def _sqlite_on_checkin(dbapi_conn: Any, _record: Any) -> None:
-    dbapi_conn.execute("PRAGMA foreign_keys=ON")
+class _WriterQueue:
+    """Makes this process's SQLite writers take turns on a lock before BEGIN IMMEDIATE.
+
+    SQLite's busy handler polls with sleeps of up to 100 ms, so writers of one process
+    that collide wait far longer than the transaction they wait for. Queueing on a
+    thread lock first hands the database over as soon as the writer before commits.
+    The database's own lock still decides; this only orders the waiting, and after the
+    busy timeout a writer goes ahead without its turn (SQLite then times it out as
+    before), so a lost release can slow writers down but never wedge them.
+    """
+
+    _HELD = "marginal_writer_turn"
+
+    def __init__(self, timeout_s: float) -> None:
+        self._lock = threading.Lock()
+        self._timeout_s = timeout_s
+
+    def enter(self, conn: Connection) -> None:
+        if self._lock.acquire(timeout=self._timeout_s):
+            conn.info[self._HELD] = True
+
+    def leave(self, conn: Connection) -> None:
+        self._release(conn.info)
+
+    def leave_record(self, dbapi_connection: Any, connection_record: Any, *_: Any) -> None:
+        self._release(connection_record.info)
+
+    def on_reset(self, dbapi_connection: Any, connection_record: Any, reset_state: Any) -> None:
+        self._release(connection_record.info)
+
+    def _release(self, info: dict[Any, Any]) -> None:
+        if info.pop(self._HELD, False):
+            self._lock.release()
+
+
+def _sqlite_on_begin(queue: _WriterQueue) -> Any:
+    def on_begin(conn: Connection) -> None:
+        # Writers take the write lock at BEGIN: a transaction that reads and then writes
+        # cannot fail on lock upgrade, and busy_timeout makes concurrent writers wait
+        # instead of failing with "database is locked". Readers stay deferred (WAL).
+        options = conn.get_execution_options()
+        if options.get("bulk_load"):
+            # Bulk loads resolve every product id inside their own write-locked
+            # transaction, so per-row foreign-key checks (a third of an import's write
+            # time) can prove nothing; checkin turns them back on.
+            conn.exec_driver_sql("PRAGMA foreign_keys=OFF")
+            conn.info[_FOREIGN_KEYS_OFF] = True
+        if options.get("writer"):
+            queue.enter(conn)
+            try:
+                conn.exec_driver_sql("BEGIN IMMEDIATE")
+            except BaseException:
+                queue.leave(conn)
+                raise
+        else:
+            conn.exec_driver_sql("BEGIN")
+
+    return on_begin
+
+
+def _sqlite_on_checkin(queue: _WriterQueue) -> Any:
+    def on_checkin(dbapi_conn: Any, record: Any) -> None:
+        queue.leave_record(dbapi_conn, record)
+        if record.info.pop(_FOREIGN_KEYS_OFF, False):
+            dbapi_conn.execute("PRAGMA foreign_keys=ON")
+
+    return on_checkin
 
 
 def make_session_factory(

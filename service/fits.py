@@ -8,7 +8,7 @@ from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import func, select, update
+from sqlalchemy import and_, bindparam, func, select, update
 from sqlalchemy.orm import Session
 
 from models import (
@@ -157,6 +157,60 @@ class FitCache:
 fit_cache = FitCache()
 
 
+@dataclass(frozen=True)
+class PricingTerms:
+    """What pricing needs of a product row (read without building an ORM object)."""
+
+    id: int
+    sku: str
+    unit_cost: float | None
+    current_price: float | None
+    min_price: float | None
+    max_price: float | None
+
+
+_PRODUCT_WITH_ACTIVE_FIT = (
+    select(
+        ProductRow.id,
+        ProductRow.sku,
+        ProductRow.unit_cost,
+        ProductRow.current_price,
+        ProductRow.min_price,
+        ProductRow.max_price,
+        FitRow.id.label("fit_id"),
+        FitRow.created_at.label("fit_created_at"),
+    )
+    .outerjoin(FitRow, and_(FitRow.product_id == ProductRow.id, FitRow.status == ACTIVE))
+    .where(ProductRow.sku == bindparam("sku"))
+)
+
+
+def product_with_active_fit(session: Session, sku: str) -> tuple[PricingTerms, int, DemandFit]:
+    """A product's pricing terms, its active fit's id and the fit, read with one query
+    (the hot path of every recommendation)."""
+    found = session.connection().execute(_PRODUCT_WITH_ACTIVE_FIT, {"sku": sku}).first()
+    if found is None:
+        raise NotFound(f"no product with sku {sku!r}")
+    product = PricingTerms(
+        id=found.id,
+        sku=found.sku,
+        unit_cost=found.unit_cost,
+        current_price=found.current_price,
+        min_price=found.min_price,
+        max_price=found.max_price,
+    )
+    if found.fit_id is None:
+        raise _no_active_fit(product)
+    return product, found.fit_id, fit_cache.get(session, found.fit_id, found.fit_created_at)
+
+
+def _no_active_fit(product: ProductRow | PricingTerms) -> NotFound:
+    return NotFound(
+        f"product {product.sku!r} has no active fit; fit one with POST "
+        f"/v1/products/{product.sku}/fits"
+    )
+
+
 def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
     """The active fit's id and the fit itself (restored once, then cached)."""
     found = session.execute(
@@ -165,10 +219,7 @@ def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
         )
     ).first()
     if found is None:
-        raise NotFound(
-            f"product {product.sku!r} has no active fit; fit one with POST "
-            f"/v1/products/{product.sku}/fits"
-        )
+        raise _no_active_fit(product)
     return found.id, fit_cache.get(session, found.id, found.created_at)
 
 

@@ -8,9 +8,12 @@ recommendation it gives.
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import func, insert, select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from models import DemandFit
@@ -24,15 +27,14 @@ from models.pricing import (
     optimal_family_prices,
     optimal_price,
 )
-from service import products
 from service.errors import Conflict, ErrorItem, InvalidInput, NotFound
-from service.fits import active_fit
+from service.fits import PricingTerms, active_fit, product_with_active_fit
 from service.numeric import NUMERIC_FAILURES, strict_floats, unusable
 from service.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 from service.tables import ProductRow, RecommendationRow, utcnow
 
 
-def price_constraints(product: ProductRow, rules: ConstraintsIn) -> PriceConstraints:
+def price_constraints(product: ProductRow | PricingTerms, rules: ConstraintsIn) -> PriceConstraints:
     """Request rules, with the product's own price bounds where the request has none."""
     values = rules.model_dump()
     values["min_price"] = (
@@ -48,7 +50,9 @@ def price_constraints(product: ProductRow, rules: ConstraintsIn) -> PriceConstra
         raise _invalid(exc) from None
 
 
-def current_price(product: ProductRow, fit: DemandFit, given: float | None) -> float | None:
+def current_price(
+    product: ProductRow | PricingTerms, fit: DemandFit, given: float | None
+) -> float | None:
     if given is not None:
         return given
     if product.current_price is not None:
@@ -98,12 +102,21 @@ def _conflict(exc: WrongSignError) -> Conflict:
     return Conflict(f'{exc.reason} Refusing to optimise; send "force": true to optimise anyway.')
 
 
-def recommend(
-    session: Session, *, sku: str, body: OptimalPriceRequest
-) -> tuple[RecommendationRow, dict[str, Any]]:
-    """One product's recommendation, stored."""
-    product = products.get_or_raise(session, sku=sku)
-    fit_id, fit = active_fit(session, product)
+@dataclass(frozen=True)
+class Priced:
+    """A recommendation worked out in a read transaction, ready to be stored."""
+
+    product_id: int
+    sku: str
+    fit_id: int
+    objective: str
+    request: dict[str, Any]
+    result: dict[str, Any]
+
+
+def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Priced:
+    """One product's recommendation (not yet stored: see :func:`store`)."""
+    product, fit_id, fit = product_with_active_fit(session, sku)
     _check_scenario(fit, body.scenario)
     try:
         with strict_floats():
@@ -125,42 +138,57 @@ def recommend(
         raise _invalid(exc) from None
     except NUMERIC_FAILURES as exc:
         raise unusable("no price can be recommended from this fit", exc) from None
-    data = result.to_dict()
-    row = _store(
-        session,
+    return Priced(
         product_id=product.id,
+        sku=product.sku,
         fit_id=fit_id,
         objective=body.objective,
         request=body.model_dump(),
-        result=data,
+        result=result.to_dict(),
     )
-    return row, data
 
 
-def _store(
-    session: Session,
-    *,
-    product_id: int,
-    fit_id: int,
-    objective: str,
-    request: dict[str, Any],
-    result: dict[str, Any],
-) -> RecommendationRow:
-    row = RecommendationRow(
-        product_id=product_id,
-        fit_id=fit_id,
-        objective=objective,
-        request=request,
-        result=result,
-        created_at=utcnow(),
+def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
+    """Store worked-out recommendations in one short write transaction.
+
+    Pricing reads and optimises outside the write lock, so concurrent requests do not
+    queue behind each other's arithmetic; if a product or fit was deleted in between,
+    the request fails as if it had come a moment later.
+    """
+    now = utcnow()
+    insert_rows = insert(RecommendationRow).returning(
+        RecommendationRow.id, sort_by_parameter_order=True
     )
-    session.add(row)
-    session.flush()
-    return row
+    try:
+        ids = session.scalars(
+            insert_rows,
+            [
+                {
+                    "product_id": p.product_id,
+                    "fit_id": p.fit_id,
+                    "objective": p.objective,
+                    "request": p.request,
+                    "result": p.result,
+                    "created_at": now,
+                }
+                for p in priced
+            ],
+        ).all()
+    except IntegrityError:
+        raise NotFound(
+            "the product or its fit was deleted while the price was worked out"
+        ) from None
+    return [
+        {**p.result, "id": row_id, "sku": p.sku, "fit_id": p.fit_id, "created_at": now}
+        for row_id, p in zip(ids, priced, strict=True)
+    ]
 
 
-def recommend_family(session: Session, *, family: str, body: FamilyPriceRequest) -> dict[str, Any]:
-    """Joint prices for the products of a family that have an active fit, stored."""
+def recommend_family(
+    session: Session, *, family: str, body: FamilyPriceRequest
+) -> tuple[dict[str, Any], list[Priced]]:
+    """Joint prices for the products of a family that have an active fit: the answer
+    without its stored products, and the recommendations to store (see :func:`store`)."""
     members = list(
         session.scalars(
             select(ProductRow).where(ProductRow.family == family).order_by(ProductRow.sku)
@@ -226,19 +254,20 @@ def recommend_family(session: Session, *, family: str, body: FamilyPriceRequest)
     except NUMERIC_FAILURES as exc:
         raise unusable("no prices can be recommended from these fits", exc) from None
     data = result.to_dict()
-    request = body.model_dump()
-    stored = []
-    for item in data["products"]:
-        row = _store(
-            session,
+    request = {"family": family, **body.model_dump()}
+    priced = [
+        Priced(
             product_id=by_sku[item["sku"]].id,
+            sku=item["sku"],
             fit_id=fit_ids[item["sku"]],
             objective=body.objective,
-            request={"family": family, **request},
+            request=request,
             result=item,
         )
-        stored.append(with_record(row, by_sku[item["sku"]].sku, item))
-    return {**data, "family": family, "products": stored, "excluded": excluded}
+        for item in data["products"]
+    ]
+    answer = {k: v for k, v in data.items() if k != "products"}
+    return {**answer, "family": family, "excluded": excluded}, priced
 
 
 def with_record(row: RecommendationRow, sku: str, result: dict[str, Any]) -> dict[str, Any]:

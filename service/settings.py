@@ -33,6 +33,16 @@ class Settings(BaseSettings):
         default=256 * 1_048_576, description="Largest CSV import body accepted (413 beyond it)"
     )
     sqlite_busy_timeout_ms: int = 30_000
+    database_pool_size: int = Field(
+        default=10, ge=1, description="Connections each server process keeps open"
+    )
+    auth_cache_seconds: float = Field(
+        default=1.0,
+        ge=0,
+        description="How long a server process trusts an API key it has verified before "
+        "looking it up again; a key revoked through another process stops working within "
+        "this time (0: look up on every request)",
+    )
     import_chunk_rows: int = Field(
         default=20_000, description="Rows written per batch during a CSV import"
     )

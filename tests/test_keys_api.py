@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import time
 
 import pytest
 import sqlalchemy as sa
@@ -10,6 +11,7 @@ from fastapi.testclient import TestClient
 
 from service.cli import main as cli_main
 from service.db import make_engine
+from service.settings import Settings
 from tests.conftest import Database, make_key
 
 pytestmark = pytest.mark.storage
@@ -227,3 +229,51 @@ def test_key_comparison_is_constant_time(
         assert response.status_code == 401
     # every attempt, even for an unknown key id, went through the constant-time comparison
     assert len(calls) == 3
+
+
+def _revoke_behind_the_process(settings: Settings, key_id: str) -> None:
+    """What another server process's revocation looks like to this one: only the row changes."""
+    engine = make_engine(settings)
+    with engine.begin() as conn:
+        conn.execute(
+            sa.text("UPDATE api_keys SET revoked_at = CURRENT_TIMESTAMP WHERE id = :id"),
+            {"id": key_id},
+        )
+    engine.dispose()
+
+
+def test_verified_keys_lapse_within_the_cache_time(db: Database) -> None:
+    from service.app import create_app
+
+    settings = db.settings.model_copy(update={"auth_cache_seconds": 0.3})
+    secret = make_key(settings, "read")
+    reader = {"Authorization": f"Bearer {secret}"}
+    with TestClient(create_app(settings)) as client:
+        assert client.get("/v1/products", headers=reader).status_code == 200
+        _revoke_behind_the_process(settings, secret.split("_")[1])
+        # Revoked elsewhere: trusted at most auth_cache_seconds longer, then refused.
+        time.sleep(0.35)
+        assert client.get("/v1/products", headers=reader).status_code == 401
+
+
+def test_without_a_key_cache_every_request_looks_the_key_up(db: Database) -> None:
+    from service.app import create_app
+
+    settings = db.settings.model_copy(update={"auth_cache_seconds": 0})
+    secret = make_key(settings, "read")
+    reader = {"Authorization": f"Bearer {secret}"}
+    with TestClient(create_app(settings)) as client:
+        assert client.get("/v1/products", headers=reader).status_code == 200
+        _revoke_behind_the_process(settings, secret.split("_")[1])
+        assert client.get("/v1/products", headers=reader).status_code == 401
+
+
+def test_a_cached_key_never_admits_a_wrong_secret(client: TestClient, db: Database) -> None:
+    secret = make_key(db.settings, "read")
+    assert (
+        client.get("/v1/products", headers={"Authorization": f"Bearer {secret}"}).status_code == 200
+    )
+    forged = secret[:-4] + ("AAAA" if not secret.endswith("AAAA") else "BBBB")
+    assert (
+        client.get("/v1/products", headers={"Authorization": f"Bearer {forged}"}).status_code == 401
+    )

@@ -11,7 +11,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service import demo
-from tests.conftest import Database
+from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
 WEEKS = [(dt.date(2025, 1, 6) + dt.timedelta(weeks=w)).isoformat() for w in range(40)]
@@ -320,3 +320,34 @@ def test_family_prices_and_the_nightly_pull(
         headers=headers,
     ).json()
     assert later["items"] == []
+
+
+def test_a_product_deleted_while_its_price_is_worked_out_is_404(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    # Prices are worked out in a read transaction and stored in a short write
+    # transaction afterwards; a delete in between must not store an orphan or fail 500.
+    from service import pricing
+    from service.db import make_engine, make_session_factory, session_scope
+    from service.errors import NotFound
+    from service.schemas import OptimalPriceRequest
+
+    exact_product(
+        client,
+        headers,
+        "GONE-1",
+        unit_cost=4.0,
+        prices=_prices(8.0, 16.0),
+        demand=lambda p: 2000 - 100 * p,
+        form="linear",
+    )
+    engine = make_engine(db.settings)
+    with session_scope(make_session_factory(engine, writer=False)) as reader:
+        priced = pricing.recommend(
+            reader, sku="GONE-1", body=OptimalPriceRequest(objective="profit")
+        )
+    assert client.delete("/v1/products/GONE-1", headers=headers).status_code == 204
+    with pytest.raises(NotFound), session_scope(make_session_factory(engine, writer=True)) as w:
+        pricing.store(w, [priced])
+    engine.dispose()
+    assert row_count(db.settings, "recommendations") == 0

@@ -5,12 +5,14 @@ from __future__ import annotations
 import datetime as dt
 from typing import Annotated
 
-from fastapi import APIRouter, Path, Query
+from fastapi import APIRouter, Path, Query, Request
+from fastapi.concurrency import run_in_threadpool
 
 from service import pricing
 from service.api.docs import problems
 from service.api.products import SkuPath
-from service.deps import READ, ReadSession, WriteSession
+from service.db import session_scope
+from service.deps import READ, ReadSession, read_sessions
 from service.pagination import decode_cursor, encode_cursor
 from service.schemas import (
     SKU_PATTERN,
@@ -47,11 +49,19 @@ CAUTION = (
     ),
     responses=problems(404, 409, 422),
 )
-def optimal_price(
-    sku: SkuPath, body: OptimalPriceRequest, session: WriteSession
+async def optimal_price(
+    sku: SkuPath, body: OptimalPriceRequest, request: Request
 ) -> RecommendationOut:
-    row, result = pricing.recommend(session, sku=sku, body=body)
-    return RecommendationOut(**pricing.with_record(row, sku, result))
+    # The hottest route for back ends: its whole body is one worker-thread call.
+    return await run_in_threadpool(_optimal_price, request, sku, body)
+
+
+def _optimal_price(request: Request, sku: str, body: OptimalPriceRequest) -> RecommendationOut:
+    # Read and optimise outside the write lock; one connection at a time.
+    with session_scope(read_sessions(request)) as reader:
+        priced = pricing.recommend(reader, sku=sku, body=body)
+    stored = request.app.state.recommendation_writer.submit([priced])[0]
+    return RecommendationOut(**stored)
 
 
 @router.post(
@@ -66,12 +76,21 @@ def optimal_price(
     ),
     responses=problems(404, 409, 422),
 )
-def family_optimal_prices(
+async def family_optimal_prices(
     family: Annotated[str, Path(pattern=SKU_PATTERN)],
     body: FamilyPriceRequest,
-    session: WriteSession,
+    request: Request,
 ) -> FamilyRecommendationOut:
-    return FamilyRecommendationOut(**pricing.recommend_family(session, family=family, body=body))
+    return await run_in_threadpool(_family_optimal_prices, request, family, body)
+
+
+def _family_optimal_prices(
+    request: Request, family: str, body: FamilyPriceRequest
+) -> FamilyRecommendationOut:
+    with session_scope(read_sessions(request)) as reader:
+        answer, priced = pricing.recommend_family(reader, family=family, body=body)
+    stored = request.app.state.recommendation_writer.submit(priced)
+    return FamilyRecommendationOut(**answer, products=stored)
 
 
 @router.get(
