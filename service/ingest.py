@@ -23,7 +23,7 @@ from typing import IO, Protocol
 import numpy as np
 from sqlalchemy.orm import Session
 
-from service import products
+from service import csv_columns, products
 from service.errors import ErrorItem, InvalidInput
 from service.observations import ObservationTuple, ObservationWriter
 from service.schemas import NAME_PATTERN, SKU_PATTERN, ObservationIn
@@ -156,7 +156,31 @@ def import_csv(
     assert layout is not None
 
     with cyclic_gc_paused():
+        if raw.seekable():
+            text.detach()  # a dropped wrapper would close the file under us
+            raw.seek(0)
+            done = _import_clean(session, raw, layout, create_products)
+            if done is not None:
+                return done
+            # Not clean: read it again row by row, which names every problem.
+            raw.seek(0)
+            text = io.TextIOWrapper(raw, encoding="utf-8-sig", newline="")
+            reader = csv.reader(text, strict=True)
+            next(reader)
         return _stream_rows(session, reader, layout, errors, create_products, chunk_rows, raw)
+
+
+def _import_clean(
+    session: Session, raw: IO[bytes], layout: _Layout, create_products: bool
+) -> UpsertOutcome | None:
+    """The column-wise import in a savepoint, rolled back when the file is not clean."""
+    savepoint = session.begin_nested()
+    done = csv_columns.import_clean_csv(session, raw, layout, create_products=create_products)
+    if done is None:
+        savepoint.rollback()
+    else:
+        savepoint.commit()
+    return done
 
 
 def _bad_utf8_line(raw: IO[bytes], fallback: int) -> int:
