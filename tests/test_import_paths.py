@@ -199,3 +199,14 @@ def test_valid_files_the_column_path_leaves_to_the_row_path(
     assert column_path_used == [False], why
     assert (outcome.rows, outcome.inserted) == (5, 5)
     assert ("TEA-003", "2024-01-01") in {(r[0], r[1]) for r in _stored(db)}
+
+
+def test_a_quoted_cell_left_open_at_the_end_is_refused(
+    db: Database, column_path_used: list[bool]
+) -> None:
+    # Arrow would read the open cell as closed; the upload was cut short, so refuse it.
+    body = (CLEAN + 'TEA-003,2024-01-01,2,5,,,1,"0').encode()
+    with pytest.raises(InvalidInput) as refused:
+        _import(db, body, seekable=True)
+    assert column_path_used == [False]
+    assert refused.value.errors[0].line == 7
