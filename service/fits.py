@@ -3,12 +3,15 @@
 from __future__ import annotations
 
 import datetime as dt
+import functools
+import json
 import threading
 from collections import OrderedDict
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import and_, bindparam, func, select, update
+from sqlalchemy import Text, and_, bindparam, column, func, insert, select, table, update
 from sqlalchemy.orm import Session
 
 from models import (
@@ -275,17 +278,30 @@ def row_values(
     fit: DemandFit,
     gates: list[GateResult],
     job_id: int | None = None,
+    encoded: bool = False,
+    result_json: str | None = None,
 ) -> dict[str, Any]:
-    """The columns of a new fit record; active only if every gate passed."""
+    """The columns of a new fit record; active only if every gate passed.
+
+    ``encoded``: the JSON columns as JSON text, for :func:`insert_rows`; ``result_json``
+    is the fit's :func:`encode_result` when the caller has it already.
+    """
     passed = all(g.passed for g in gates)
+    gates_record = {"passed": passed, "checks": [g.to_dict() for g in gates]}
+    if encoded:
+        spec: Any = _spec_json(fit.spec)
+        result: Any = result_json if result_json is not None else encode_result(fit)
+        gates_column: Any = _JSON.encode(gates_record)
+    else:
+        spec, result, gates_column = fit.spec.to_dict(), fit.to_dict(), gates_record
     return {
         "product_id": product_id,
         "version": version,
         "status": ACTIVE if passed else REJECTED,
         "form": fit.form,
-        "spec": fit.spec.to_dict(),
-        "result": fit.to_dict(),
-        "gates": {"passed": passed, "checks": [g.to_dict() for g in gates]},
+        "spec": spec,
+        "result": result,
+        "gates": gates_column,
         "n_obs": fit.quality.n_obs,
         "holdout_wape": fit.quality.holdout_wape,
         "own_price_estimate": fit.own_price.estimate,
@@ -294,6 +310,57 @@ def row_values(
         "window_end": _date(fit.window.last_period),
         "created_at": utcnow(),
     }
+
+
+# The JSON text the JSON columns would hold (json.dumps' defaults, without the check
+# for circular references: records are trees).
+_JSON = json.JSONEncoder(check_circular=False)
+
+
+def encode_result(fit: DemandFit) -> str:
+    """A fit's record as the text of its ``result`` column (the costly part of a record)."""
+    return _JSON.encode(fit.to_dict())
+
+
+@functools.lru_cache(maxsize=64)
+def _spec_json(spec: ModelSpec) -> str:
+    """A spec's JSON text: every record of a batch shares its spec, so it is encoded once."""
+    return _JSON.encode(spec.to_dict())
+
+
+# The columns of row_values, in the order insert_rows writes them.
+_COLUMNS = tuple(c.name for c in FitRow.__table__.columns if c.name != "id")
+_JSON_COLUMNS = frozenset({"spec", "result", "gates"})
+# Fit records as SQLite takes them: the JSON columns arrive as text already encoded (as
+# the JSON type would encode them), the other columns keep their types.
+_TEXT_JSON_FITS = table(
+    "fits",
+    *(
+        column(c.name, Text() if c.name in _JSON_COLUMNS else c.type)
+        for c in FitRow.__table__.columns
+        if c.name != "id"
+    ),
+)
+
+
+def insert_rows(session: Session, rows: Sequence[dict[str, Any]]) -> None:
+    """Insert new fit records (``row_values(..., encoded=True)``) in bulk.
+
+    PostgreSQL takes them with one COPY in the session's transaction (an INSERT per
+    record costs a round trip and a statement each); SQLite with one executemany.
+    """
+    if not rows:
+        return
+    conn = session.connection()
+    if conn.dialect.name != "postgresql":
+        conn.execute(insert(_TEXT_JSON_FITS), list(rows))
+        return
+    driver: Any = conn.connection.driver_connection
+    with driver.cursor() as cursor, cursor.copy(
+        f"COPY fits ({', '.join(_COLUMNS)}) FROM STDIN"
+    ) as copy:
+        for row in rows:
+            copy.write_row([row[name] for name in _COLUMNS])
 
 
 def _date(text: str | None) -> dt.date | None:
@@ -325,7 +392,8 @@ def fit_now(
         ) from None
     except NUMERIC_FAILURES as exc:
         raise unusable(
-            f"the history of {sku!r} cannot be fitted in the {model_spec.form} form", exc,
+            f"the history of {sku!r} cannot be fitted in the {model_spec.form} form",
+            exc,
             field="spec",
         ) from None
     row = record_fit(session, product=product, fit=fit, settings=settings)

@@ -4,28 +4,48 @@ Products that share a spec are fitted together (`models.fit_many`) in batches; e
 batch's fits, activations and the job's progress are written in one transaction.
 Incremental by default: a product whose latest fit is newer than its last history
 change is skipped unless the job is forced.
+
+Each batch is read, fitted, then written. On PostgreSQL the reads and the writes run in
+threads of their own, so the server reads the next batch and stores the last while this
+process fits (the driver waits for the server without holding the interpreter); batches
+are still written one after the other, in order. SQLite works in this process, and its
+driver lets go of the interpreter at every row, so there everything runs in turn.
 """
 
 from __future__ import annotations
 
+import functools
 import json
 from collections import defaultdict
-from collections.abc import Sequence
+from collections.abc import Callable, Iterator, Sequence
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import contextmanager
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Generic, Protocol, TypeVar
 
-from sqlalchemy import func, insert, select, update
+from sqlalchemy import Text, cast, func, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import DemandFit, FitFailure, History, ModelSpec, SpecError, fit_many
+from models.spec import UNIT_COST
 from service import jobs
 from service.db import session_scope
-from service.fits import ACTIVE, SUPERSEDED, quality_gates, row_values
+from service.fits import (
+    ACTIVE,
+    SUPERSEDED,
+    encode_result,
+    insert_rows,
+    quality_gates,
+    row_values,
+)
 from service.histories import ProductRef, load_histories
 from service.ingest import cyclic_gc_paused
 from service.numeric import NUMERIC_FAILURES, reason, strict_floats
 from service.settings import Settings
 from service.tables import FitRow, JobRow, ProductRow, as_utc
+
+T = TypeVar("T")
+T_co = TypeVar("T_co", covariant=True)
 
 
 @dataclass(frozen=True)
@@ -34,6 +54,8 @@ class Candidate:
     sku: str
     family: str | None
     spec: dict[str, Any]
+    # The spec as canonical JSON: products whose keys are equal are fitted together.
+    key: str = ""
 
 
 def scope_filter(scope: dict[str, Any]) -> Any:
@@ -57,7 +79,8 @@ def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress)
             ProductRow.id,
             ProductRow.sku,
             ProductRow.family,
-            ProductRow.default_spec,
+            # As text: products mostly share a few specs, each decoded once below.
+            cast(ProductRow.default_spec, Text).label("default_spec"),
             ProductRow.history_changed_at,
             latest_fit.c.at,
         )
@@ -72,6 +95,17 @@ def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress)
             progress.done += 1
             progress.counts["failed"] += 1
             progress.add_error(sku, "no such product")
+    specs: dict[str | None, tuple[dict[str, Any], str]] = {}
+
+    def spec_of(text: str | None) -> tuple[dict[str, Any], str]:
+        if text not in specs:
+            if options.get("spec") is not None:
+                spec = options["spec"]
+            else:
+                spec = (json.loads(text) if text is not None else None) or {}
+            specs[text] = (spec, json.dumps(spec, sort_keys=True))
+        return specs[text]
+
     chosen = []
     for row in rows:
         progress.total += 1
@@ -82,9 +116,33 @@ def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress)
             progress.done += 1
             progress.counts["skipped"] += 1
             continue
-        spec = options.get("spec") if options.get("spec") is not None else row.default_spec
-        chosen.append(Candidate(row.id, row.sku, row.family, spec or {}))
+        spec, key = spec_of(row.default_spec)
+        chosen.append(Candidate(row.id, row.sku, row.family, spec, key))
     return chosen
+
+
+@dataclass(frozen=True)
+class _Batch:
+    """Products fitted and written together: a spec, or why their spec is invalid."""
+
+    members: Sequence[Candidate]
+    spec: ModelSpec | None
+    invalid: str = ""
+
+
+def _batches(candidates: Sequence[Candidate], size: int) -> list[_Batch]:
+    groups: dict[str, list[Candidate]] = defaultdict(list)
+    for candidate in candidates:
+        groups[candidate.key or json.dumps(candidate.spec, sort_keys=True)].append(candidate)
+    out = []
+    for key, members in groups.items():
+        try:
+            spec = ModelSpec.from_dict(json.loads(key))
+        except SpecError as exc:
+            out.append(_Batch(members, None, str(exc)))
+            continue
+        out += [_Batch(members[i : i + size], spec) for i in range(0, len(members), size)]
+    return out
 
 
 def run_refit(
@@ -104,89 +162,147 @@ def run_refit(
     if on_progress:
         on_progress(progress)
 
-    groups: dict[str, list[Candidate]] = defaultdict(list)
-    for candidate in candidates:
-        groups[json.dumps(candidate.spec, sort_keys=True)].append(candidate)
-    for key, members in groups.items():
-        try:
-            spec = ModelSpec.from_dict(json.loads(key))
-        except SpecError as exc:
-            with session_scope(writes) as session:
-                for member in members:
-                    progress.add_error(member.sku, f"invalid spec: {exc}")
-                progress.counts["failed"] += len(members)
-                progress.done += len(members)
-                jobs.save_progress(session, job_id=job_id, progress=progress)
-            continue
-        size = settings.job_batch_size
-        for start in range(0, len(members), size):
-            batch = members[start : start + size]
-            _fit_batch(
-                reads,
+    batches = _batches(candidates, settings.job_batch_size)
+    fitted = [b for b in batches if b.spec is not None]
+    threads = not settings.is_sqlite
+    with _lane(threads, "marginal-refit-read") as reader, _lane(
+        threads, "marginal-refit-write"
+    ) as writer:
+        upcoming = iter(fitted)
+
+        def read_next() -> _Task[list[History]] | None:
+            batch = next(upcoming, None)
+            return None if batch is None else reader(_read, reads, batch)
+
+        reading = read_next()
+        writing: _Task[None] | None = None
+
+        def settle() -> None:
+            """Wait for the batch being written; progress is then this thread's again."""
+            nonlocal writing
+            if writing is not None:
+                done, writing = writing, None
+                done.result()
+                if on_progress:
+                    on_progress(progress)
+
+        for batch in batches:
+            if batch.spec is None:
+                settle()
+                with session_scope(writes) as session:
+                    for member in batch.members:
+                        progress.add_error(member.sku, f"invalid spec: {batch.invalid}")
+                    progress.counts["failed"] += len(batch.members)
+                    progress.done += len(batch.members)
+                    jobs.save_progress(session, job_id=job_id, progress=progress)
+                continue
+            assert reading is not None
+            histories = reading.result()
+            reading = read_next()
+            families = {c.sku: c.family or "" for c in batch.members}
+            # Histories, fits and records are many short-lived objects without cycles:
+            # collector passes over them cost about a third of a batch and free nothing.
+            with cyclic_gc_paused():
+                results = fit_guarded(histories, batch.spec, families=families)
+                # The records' JSON (most of a write's work) is made here, in parallel
+                # with the last batch's write on PostgreSQL.
+                texts = [encode_result(r) if isinstance(r, DemandFit) else None for r in results]
+            del histories
+            settle()
+            writing = writer(
+                _write,
                 writes,
                 job_id=job_id,
-                batch=batch,
-                spec=spec,
+                batch=batch.members,
+                results=results,
+                texts=texts,
                 settings=settings,
                 progress=progress,
             )
-            if on_progress:
-                on_progress(progress)
+            if not threads:
+                settle()
+        settle()
     return progress
 
 
-def _fit_batch(
-    reads: sessionmaker[Session],
-    writes: sessionmaker[Session],
-    *,
-    job_id: int,
-    batch: Sequence[Candidate],
-    spec: ModelSpec,
-    settings: Settings,
-    progress: jobs.Progress,
-) -> None:
-    cross = {c.sku: [s for s in spec.cross_prices if s != c.sku] for c in batch}
-    # Histories, fits and records are many short-lived objects without cycles: collector
-    # passes over them cost about a third of a batch and free nothing.
-    with cyclic_gc_paused():
-        _fit_and_record(
-            reads,
-            writes,
-            job_id=job_id,
-            batch=batch,
-            spec=spec,
-            cross=cross,
-            settings=settings,
-            progress=progress,
+class _Task(Protocol[T_co]):
+    def result(self) -> T_co: ...
+
+
+class _Later(Generic[T]):
+    """A task run in this thread when its result is first asked for."""
+
+    def __init__(self, fn: Callable[..., T], /, *args: Any, **kwargs: Any) -> None:
+        self._call: Callable[[], T] | None = functools.partial(fn, *args, **kwargs)
+        self._value: T | None = None
+
+    def result(self) -> T:
+        if self._call is not None:
+            self._value = self._call()
+            self._call = None
+        return self._value  # type: ignore[return-value]
+
+
+@contextmanager
+def _lane(thread: bool, name: str) -> Iterator[Callable[..., _Task[Any]]]:
+    """Runs tasks one at a time: in a thread of its own, or in this thread when their
+    result is asked for (as a plain call would, in the same order).
+
+    On the way out, waits for the task in hand (a write in flight is finished, not cut
+    off) and drops any not started.
+    """
+    if not thread:
+        yield _Later
+        return
+    executor = ThreadPoolExecutor(max_workers=1, thread_name_prefix=name)
+    try:
+        yield executor.submit
+    finally:
+        executor.shutdown(wait=True, cancel_futures=True)
+
+
+def _read(reads: sessionmaker[Session], batch: _Batch) -> list[History]:
+    assert batch.spec is not None
+    spec = batch.spec
+    cross = {c.sku: [s for s in spec.cross_prices if s != c.sku] for c in batch.members}
+    with cyclic_gc_paused(), session_scope(reads) as session:
+        return load_histories(
+            session,
+            [ProductRef(c.id, c.sku) for c in batch.members],
+            cross,
+            covariates=covariates_used(spec),
         )
 
 
-def _fit_and_record(
-    reads: sessionmaker[Session],
+def _write(
     writes: sessionmaker[Session],
     *,
     job_id: int,
     batch: Sequence[Candidate],
-    spec: ModelSpec,
-    cross: dict[str, list[str]],
+    results: Sequence[DemandFit | FitFailure],
+    texts: Sequence[str | None],
     settings: Settings,
     progress: jobs.Progress,
 ) -> None:
-    with session_scope(reads) as session:
-        histories = load_histories(session, [ProductRef(c.id, c.sku) for c in batch], cross)
-    families = {c.sku: c.family or "" for c in batch}
-    results = fit_guarded(histories, spec, families=families)
-    with session_scope(writes) as session:
+    with cyclic_gc_paused(), session_scope(writes) as session:
         _record(
             session,
             job_id=job_id,
             batch=batch,
             results=results,
+            texts=texts,
             settings=settings,
             progress=progress,
         )
         progress.done += len(batch)
         jobs.save_progress(session, job_id=job_id, progress=progress)
+
+
+def covariates_used(spec: ModelSpec) -> list[str]:
+    """The covariates a fit under ``spec`` reads: its terms, and its instruments other
+    than the unit cost (which has a column of its own)."""
+    instruments = [name for name in spec.instruments if name != UNIT_COST]
+    return list(dict.fromkeys([*spec.covariates, *instruments]))
 
 
 def fit_guarded(
@@ -221,6 +337,7 @@ def _record(
     job_id: int,
     batch: Sequence[Candidate],
     results: Sequence[DemandFit | FitFailure],
+    texts: Sequence[str | None],
     settings: Settings,
     progress: jobs.Progress,
 ) -> None:
@@ -243,7 +360,7 @@ def _record(
     )
     new_rows: list[dict[str, Any]] = []
     superseded: list[int] = []
-    for candidate, result in zip(batch, results, strict=True):
+    for candidate, result, text in zip(batch, results, texts, strict=True):
         if isinstance(result, FitFailure):
             progress.counts["failed"] += 1
             progress.add_error(candidate.sku, result.reason.removeprefix(f"{candidate.sku}: "))
@@ -262,10 +379,15 @@ def _record(
         version = (versions.get(candidate.id) or 0) + 1
         new_rows.append(
             row_values(
-                product_id=candidate.id, version=version, fit=result, gates=gates, job_id=job_id
+                product_id=candidate.id,
+                version=version,
+                fit=result,
+                gates=gates,
+                job_id=job_id,
+                encoded=True,
+                result_json=text,
             )
         )
     if superseded:
         session.execute(update(FitRow).where(FitRow.id.in_(superseded)).values(status=SUPERSEDED))
-    if new_rows:
-        session.execute(insert(FitRow), new_rows)
+    insert_rows(session, new_rows)
