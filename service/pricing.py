@@ -10,9 +10,9 @@ from __future__ import annotations
 import datetime as dt
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, cast
 
-from sqlalchemy import func, insert, select
+from sqlalchemy import Table, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -148,6 +148,12 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
     )
 
 
+_RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
+_INSERT_RECOMMENDATIONS = (
+    insert(_RECOMMENDATIONS).returning(_RECOMMENDATIONS.c.id, sort_by_parameter_order=True)
+)
+
+
 def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
     """Store worked-out recommendations in one short write transaction.
 
@@ -156,12 +162,10 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
     the request fails as if it had come a moment later.
     """
     now = utcnow()
-    insert_rows = insert(RecommendationRow).returning(
-        RecommendationRow.id, sort_by_parameter_order=True
-    )
     try:
-        ids = session.scalars(
-            insert_rows,
+        # Core, not the ORM: no objects to track, and no ORM bulk-insert machinery.
+        ids = session.connection().scalars(
+            _INSERT_RECOMMENDATIONS,
             [
                 {
                     "product_id": p.product_id,
