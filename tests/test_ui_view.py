@@ -596,3 +596,25 @@ def test_numbers_on_pages_are_finite_or_marked_missing(shop: Shop) -> None:
         html = client.get(path).text
         for word in ("nan", "inf", "None"):
             assert f">{word}<" not in html and f" {word} " not in html, (path, word)
+
+
+def test_any_product_name_draws_without_warnings_into_well_formed_svg(shop: Shop) -> None:
+    # A name may hold control characters (not allowed in XML) and scripts the bundled
+    # font lacks; every chart still renders, well-formed, with no warning raised.
+    path = "/v1/products/TEA-021"
+    before = shop.api(path)["name"]
+    admin = {"Authorization": f"Bearer {shop.write}"}
+    renamed = shop.client.patch(path, json={"name": "Gyokuro \x1b[31m 玉露 \x07tin"}, headers=admin)
+    assert renamed.status_code == 200, renamed.text
+    try:
+        engine = make_engine(shop.settings)
+        with session_scope(make_session_factory(engine, writer=False)) as session:
+            subject = chartbook.subject(session, records.product(session, "TEA-021"))
+            drawn = [chartbook.draw(subject, k).svg for k in ("demand", "money", "fit-over-time")]
+        engine.dispose()
+        for svg in drawn:
+            root = assert_clean_svg(svg)
+            title = root.find("{http://www.w3.org/2000/svg}title")
+            assert title is not None and "玉露" in (title.text or "") and "\x1b" not in title.text
+    finally:
+        shop.client.patch(path, json={"name": before}, headers=admin)

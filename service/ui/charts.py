@@ -13,6 +13,8 @@ import io
 import math
 import re
 import threading
+import unicodedata
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any, TypeVar
@@ -61,7 +63,11 @@ ChartInputs = TypeVar("ChartInputs")
 def _one_at_a_time(draw: Callable[[ChartInputs], Chart]) -> Callable[[ChartInputs], Chart]:
     @functools.wraps(draw)
     def serialised(data: ChartInputs) -> Chart:
-        with _draw_lock:
+        with _draw_lock, warnings.catch_warnings():
+            # A name in a script the bundled font lacks is drawn with empty boxes; that is
+            # no reason to warn on every chart. (Drawing is serialised, so this filter
+            # only ever overlaps threads that are not drawing.)
+            warnings.filterwarnings("ignore", r"Glyph \d+ .*missing from font", UserWarning)
             return draw(data)
 
     return serialised
@@ -94,8 +100,8 @@ def _svg(figure: Figure, title: str, summary: Sequence[str]) -> bytes:
         figure.savefig(buffer, format="svg", metadata={"Date": None, "Creator": "Marginal"})
     text = buffer.getvalue()
     head = (
-        f'<title id="chart-title">{escape(title)}</title>'
-        f'<desc id="chart-desc">{escape(" ".join(summary))}</desc>'
+        f'<title id="chart-title">{escape(plain(title))}</title>'
+        f'<desc id="chart-desc">{escape(plain(" ".join(summary)))}</desc>'
     )
     text = re.sub(
         r"<svg\b([^>]*)>",
@@ -115,13 +121,19 @@ def _figure(height: float = DEMAND_HEIGHT) -> Figure:
     return figure
 
 
+def plain(text: str) -> str:
+    """Text without control characters (a product name may hold any): XML does not allow
+    them in an SVG, and no font draws them."""
+    return "".join(c for c in text if c in "\n\t" or not unicodedata.category(c).startswith("C"))
+
+
 def _heading(figure: Figure, title: str) -> None:
     """The title in figure coordinates: an axes title would be re-placed around the tick
     labels at every drawing, which costs more than the rest of a chart's text."""
     figure.text(
         0.015,
         0.985,
-        title,
+        plain(title),
         ha="left",
         va="top",
         fontsize=10.5,
@@ -147,7 +159,7 @@ def _note(ax: Axes, text: str, gid: str = "chart-note") -> None:
     ax.text(
         0.5,
         0.97,
-        text,
+        plain(text),
         transform=ax.transAxes,
         ha="center",
         va="top",
