@@ -3,9 +3,35 @@
 from __future__ import annotations
 
 import datetime as dt
+import re
 from typing import Annotated, Any, Generic, Literal, TypeVar
 
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints, model_validator
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    StringConstraints,
+    model_validator,
+)
+
+# Query parameters take dates and times only as the OpenAPI formats name them: pydantic
+# alone would also read a number as seconds since 1970, or a date as a date-time.
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+_RFC3339 = re.compile(r"\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})")
+
+
+def _text_matching(pattern: re.Pattern[str], example: str) -> BeforeValidator:
+    def check(value: object) -> object:
+        if not isinstance(value, str) or not pattern.fullmatch(value):
+            raise ValueError(f"expected text like {example}")
+        return value
+
+    return BeforeValidator(check)
+
+
+DateText = Annotated[dt.date, _text_matching(_ISO_DATE, "2026-12-01")]
+DateTimeText = Annotated[dt.datetime, _text_matching(_RFC3339, "2026-12-01T00:00:00Z")]
 
 SKU_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"
 NAME_PATTERN = r"^[A-Za-z_][A-Za-z0-9_.-]{0,63}$"

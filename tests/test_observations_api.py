@@ -157,3 +157,15 @@ def test_wrong_content_type_is_refused(
     )
     assert response.status_code == 422
     assert response.headers["content-type"] == "application/problem+json"
+
+
+@pytest.mark.parametrize("start", ["0", "20240108", "2024-01-08T00:00:00Z"])
+def test_history_ranges_take_only_iso_dates(
+    client: TestClient, headers: dict[str, str], start: str
+) -> None:
+    client.put("/v1/products/TEA-001", json={"name": "tin"}, headers=headers)
+    response = client.get(
+        "/v1/products/TEA-001/observations", params={"start": start}, headers=headers
+    )
+    assert response.status_code == 422, response.text
+    assert "2026-12-01" in response.json()["errors"][0]["message"]

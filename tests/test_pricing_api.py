@@ -351,3 +351,22 @@ def test_a_product_deleted_while_its_price_is_worked_out_is_404(
         pricing.store(w, [priced])
     engine.dispose()
     assert row_count(db.settings, "recommendations") == 0
+
+
+@pytest.mark.parametrize(
+    ("since", "ok"),
+    [
+        ("2026-12-01T00:00:00Z", True),
+        ("2026-12-01T00:00:00.5+01:00", True),
+        ("7", False),  # pydantic alone reads a number as seconds since 1970
+        ("2026-12-01", False),  # a date is not a date-time
+        ("2026-12-01T00:00:00", False),  # RFC 3339 needs the offset
+    ],
+)
+def test_since_takes_only_rfc3339_date_times(
+    client: TestClient, headers: dict[str, str], since: str, ok: bool
+) -> None:
+    response = client.get("/v1/recommendations", params={"since": since}, headers=headers)
+    assert response.status_code == (200 if ok else 422), response.text
+    if not ok:
+        assert response.json()["errors"][0]["field"].endswith("since")

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import datetime as dt
 from typing import Annotated
 
 from fastapi import APIRouter, Query
@@ -13,7 +12,7 @@ from service.api.products import SkuPath
 from service.deps import READ, WRITE, ReadSession, WriteSession
 from service.mapping import observation_out
 from service.pagination import cursor_date, decode_cursor, encode_cursor
-from service.schemas import ObservationBatch, ObservationOut, Page, UpsertCounts
+from service.schemas import DateText, ObservationBatch, ObservationOut, Page, UpsertCounts
 
 router = APIRouter(prefix="/v1/products/{sku}/observations", tags=["observations"])
 
@@ -46,8 +45,8 @@ def upsert_observations(
 def list_observations(
     sku: SkuPath,
     session: ReadSession,
-    start: Annotated[dt.date | None, Query(description="First period to include")] = None,
-    end: Annotated[dt.date | None, Query(description="Last period to include")] = None,
+    start: Annotated[DateText | None, Query(description="First period to include")] = None,
+    end: Annotated[DateText | None, Query(description="Last period to include")] = None,
     limit: Annotated[int, Query(ge=1, le=5000)] = 1000,
     cursor: Annotated[
         str | None, Query(description="From `next_cursor` of the previous page")

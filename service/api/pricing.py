@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import datetime as dt
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, Request
@@ -16,6 +15,7 @@ from service.deps import READ, ReadSession, read_sessions
 from service.pagination import decode_cursor, encode_cursor
 from service.schemas import (
     SKU_PATTERN,
+    DateTimeText,
     FamilyPriceRequest,
     FamilyRecommendationOut,
     OptimalPriceRequest,
@@ -105,8 +105,8 @@ def list_recommendations(
     session: ReadSession,
     family: Annotated[str | None, Query(pattern=SKU_PATTERN)] = None,
     since: Annotated[
-        dt.datetime | None,
-        Query(description="Only recommendations made at or after this time (ISO 8601)"),
+        DateTimeText | None,
+        Query(description="Only recommendations made at or after this time (RFC 3339)"),
     ] = None,
     limit: Annotated[int, Query(ge=1, le=500)] = 100,
     cursor: Annotated[
