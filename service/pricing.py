@@ -8,7 +8,8 @@ recommendation it gives.
 from __future__ import annotations
 
 import datetime as dt
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any, cast
 
@@ -98,6 +99,20 @@ def _invalid(exc: PricingInputError) -> InvalidInput:
     return InvalidInput(str(exc), errors=[ErrorItem(field="body", message=str(exc))])
 
 
+@contextmanager
+def _pricing_errors(unusable_message: str) -> Iterator[None]:
+    """The library's pricing errors as HTTP problems, with floating-point traps on."""
+    try:
+        with strict_floats():
+            yield
+    except WrongSignError as exc:
+        raise _conflict(exc) from None
+    except PricingInputError as exc:
+        raise _invalid(exc) from None
+    except NUMERIC_FAILURES as exc:
+        raise unusable(unusable_message, exc) from None
+
+
 def _conflict(exc: WrongSignError) -> Conflict:
     return Conflict(f'{exc.reason} Refusing to optimise; send "force": true to optimise anyway.')
 
@@ -118,26 +133,19 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
     """One product's recommendation (not yet stored: see :func:`store`)."""
     product, fit_id, fit = product_with_active_fit(session, sku)
     _check_scenario(fit, body.scenario)
-    try:
-        with strict_floats():
-            result = optimal_price(
-                fit,
-                objective=body.objective,
-                unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
-                current_price=current_price(product, fit, body.current_price),
-                constraints=price_constraints(product, body.constraints),
-                scenario=body.scenario,
-                uncertainty_draws=body.uncertainty_draws,
-                seed=body.seed,
-                curve_points=body.curve_points,
-                force=body.force,
-            )
-    except WrongSignError as exc:
-        raise _conflict(exc) from None
-    except PricingInputError as exc:
-        raise _invalid(exc) from None
-    except NUMERIC_FAILURES as exc:
-        raise unusable("no price can be recommended from this fit", exc) from None
+    with _pricing_errors("no price can be recommended from this fit"):
+        result = optimal_price(
+            fit,
+            objective=body.objective,
+            unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
+            current_price=current_price(product, fit, body.current_price),
+            constraints=price_constraints(product, body.constraints),
+            scenario=body.scenario,
+            uncertainty_draws=body.uncertainty_draws,
+            seed=body.seed,
+            curve_points=body.curve_points,
+            force=body.force,
+        )
     return Priced(
         product_id=product.id,
         sku=product.sku,
@@ -149,8 +157,8 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
 
 
 _RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
-_INSERT_RECOMMENDATIONS = (
-    insert(_RECOMMENDATIONS).returning(_RECOMMENDATIONS.c.id, sort_by_parameter_order=True)
+_INSERT_RECOMMENDATIONS = insert(_RECOMMENDATIONS).returning(
+    _RECOMMENDATIONS.c.id, sort_by_parameter_order=True
 )
 
 
@@ -164,26 +172,30 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
     now = utcnow()
     try:
         # Core, not the ORM: no objects to track, and no ORM bulk-insert machinery.
-        ids = session.connection().scalars(
-            _INSERT_RECOMMENDATIONS,
-            [
-                {
-                    "product_id": p.product_id,
-                    "fit_id": p.fit_id,
-                    "objective": p.objective,
-                    "request": p.request,
-                    "result": p.result,
-                    "created_at": now,
-                }
-                for p in priced
-            ],
-        ).all()
+        ids = (
+            session.connection()
+            .scalars(
+                _INSERT_RECOMMENDATIONS,
+                [
+                    {
+                        "product_id": p.product_id,
+                        "fit_id": p.fit_id,
+                        "objective": p.objective,
+                        "request": p.request,
+                        "result": p.result,
+                        "created_at": now,
+                    }
+                    for p in priced
+                ],
+            )
+            .all()
+        )
     except IntegrityError:
         raise NotFound(
             "the product or its fit was deleted while the price was worked out"
         ) from None
     return [
-        {**p.result, "id": row_id, "sku": p.sku, "fit_id": p.fit_id, "created_at": now}
+        answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now)
         for row_id, p in zip(ids, priced, strict=True)
     ]
 
@@ -231,32 +243,23 @@ def recommend_family(
             prefix=f"scenario.{sku}",
         )
     order = [(a, b) for a, b in body.order if a in fits and b in fits]
-    try:
-        with strict_floats():
-            result = optimal_family_prices(
-                fits,
-                objective=body.objective,
-                unit_costs={s: by_sku[s].unit_cost for s in fits},
-                current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
-                constraints={
-                    s: price_constraints(
-                        by_sku[s], body.product_constraints.get(s, body.constraints)
-                    )
-                    for s in fits
-                },
-                order=order,
-                max_total_change_pct=body.max_total_change_pct,
-                scenario=body.scenario,
-                uncertainty_draws=body.uncertainty_draws,
-                seed=body.seed,
-                force=body.force,
-            )
-    except WrongSignError as exc:
-        raise _conflict(exc) from None
-    except PricingInputError as exc:
-        raise _invalid(exc) from None
-    except NUMERIC_FAILURES as exc:
-        raise unusable("no prices can be recommended from these fits", exc) from None
+    with _pricing_errors("no prices can be recommended from these fits"):
+        result = optimal_family_prices(
+            fits,
+            objective=body.objective,
+            unit_costs={s: by_sku[s].unit_cost for s in fits},
+            current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
+            constraints={
+                s: price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints))
+                for s in fits
+            },
+            order=order,
+            max_total_change_pct=body.max_total_change_pct,
+            scenario=body.scenario,
+            uncertainty_draws=body.uncertainty_draws,
+            seed=body.seed,
+            force=body.force,
+        )
     data = result.to_dict()
     request = {"family": family, **body.model_dump()}
     priced = [
@@ -274,8 +277,11 @@ def recommend_family(
     return {**answer, "family": family, "excluded": excluded}, priced
 
 
-def with_record(row: RecommendationRow, sku: str, result: dict[str, Any]) -> dict[str, Any]:
-    return {**result, "id": row.id, "sku": sku, "fit_id": row.fit_id, "created_at": row.created_at}
+def answer(
+    result: dict[str, Any], *, row_id: int, sku: str, fit_id: int | None, created_at: dt.datetime
+) -> dict[str, Any]:
+    """A stored recommendation as the API answers it."""
+    return {**result, "id": row_id, "sku": sku, "fit_id": fit_id, "created_at": created_at}
 
 
 def latest_page(

@@ -122,9 +122,14 @@ def list_recommendations(
     items = [
         RecommendationOut(
             **{
-                **pricing.with_record(row, sku, row.result),
+                **pricing.answer(
+                    row.result,
+                    row_id=row.id,
+                    sku=sku,
+                    fit_id=row.fit_id,
+                    created_at=as_utc(row.created_at),
+                ),
                 "curve": None,
-                "created_at": as_utc(row.created_at),
             }
         )
         for row, sku in rows
