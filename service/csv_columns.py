@@ -217,20 +217,12 @@ def _optional(column: pa.Array) -> list[float | None]:
 
 
 def _flags(column: pa.Array) -> list[bool | None]:
-    from service.ingest import FALSE_WORDS, TRUE_WORDS
+    from service.ingest import BAD_FLAG, in_stock_value
 
     words, index = _distinct(column)
-    meaning: list[bool | None] = []
-    for word in words:
-        word = word.strip().lower()
-        if word in TRUE_WORDS:
-            meaning.append(True)
-        elif word in FALSE_WORDS:
-            meaning.append(False)
-        elif not word:
-            meaning.append(None)
-        else:
-            raise _GiveUp
+    meaning = [in_stock_value(word) for word in words]
+    if any(value is BAD_FLAG for value in meaning):
+        raise _GiveUp
     return np.array(meaning, dtype=object)[index].tolist()  # type: ignore[no-any-return]
 
 

@@ -93,10 +93,11 @@ class _WriterQueue:
     def leave(self, conn: Connection) -> None:
         self._release(conn.info)
 
-    def leave_record(self, dbapi_connection: Any, connection_record: Any, *_: Any) -> None:
+    def on_reset(self, dbapi_connection: Any, connection_record: Any, reset_state: Any) -> None:
+        # (SQLAlchemy tells this event's signature by its parameter names.)
         self._release(connection_record.info)
 
-    def on_reset(self, dbapi_connection: Any, connection_record: Any, reset_state: Any) -> None:
+    def release_record(self, connection_record: Any) -> None:
         self._release(connection_record.info)
 
     def _release(self, info: dict[Any, Any]) -> None:
@@ -131,7 +132,7 @@ def _sqlite_on_begin(queue: _WriterQueue) -> Any:
 
 def _sqlite_on_checkin(queue: _WriterQueue) -> Any:
     def on_checkin(dbapi_conn: Any, record: Any) -> None:
-        queue.leave_record(dbapi_conn, record)
+        queue.release_record(record)
         if record.info.pop(_FOREIGN_KEYS_OFF, False):
             dbapi_conn.execute("PRAGMA foreign_keys=ON")
 

@@ -427,8 +427,8 @@ def _fast_chunk(rows: list[list[str]], row_lines: list[int], layout: _Layout) ->
         unit_cost = cost
     in_stock: list[bool | None] = [None] * n
     if layout.in_stock is not None:
-        words = {w: _flag(w) for w in set(columns[layout.in_stock])}
-        if any(v is _BAD_FLAG for v in words.values()):
+        words = {w: in_stock_value(w) for w in set(columns[layout.in_stock])}
+        if any(v is BAD_FLAG for v in words.values()):
             return None
         in_stock = [words[w] for w in columns[layout.in_stock]]  # type: ignore[misc]
     covariates = _covariate_json(columns, layout, n)
@@ -447,10 +447,11 @@ def _fast_chunk(rows: list[list[str]], row_lines: list[int], layout: _Layout) ->
     )
 
 
-_BAD_FLAG = object()
+BAD_FLAG = object()
 
 
-def _flag(word: str) -> object:
+def in_stock_value(word: str) -> object:
+    """True, False, None for an empty cell, or BAD_FLAG."""
     word = word.strip().lower()
     if not word:
         return None
@@ -458,7 +459,7 @@ def _flag(word: str) -> object:
         return True
     if word in FALSE_WORDS:
         return False
-    return _BAD_FLAG
+    return BAD_FLAG
 
 
 def _finite_column(cells: Sequence[str], *, minimum: float, strict: bool) -> np.ndarray | None:
