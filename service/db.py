@@ -11,6 +11,7 @@ from typing import Any
 from sqlalchemy import Connection, Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
+from service import json_text
 from service.settings import Settings
 
 
@@ -26,6 +27,7 @@ def make_engine(settings: Settings) -> Engine:
                 "check_same_thread": False,
             },
             pool_size=settings.database_pool_size,
+            json_serializer=json_text.dumps,
         )
         queue = _WriterQueue(settings.sqlite_busy_timeout_ms / 1000)
         event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
@@ -43,6 +45,7 @@ def make_engine(settings: Settings) -> Engine:
         connect_args=connect_args,
         pool_pre_ping=True,
         pool_size=settings.database_pool_size,
+        json_serializer=json_text.dumps,
     )
 
 

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import datetime as dt
 import functools
-import json
 import threading
 from collections import OrderedDict
 from collections.abc import Sequence
@@ -24,7 +23,7 @@ from models import (
     fit_many,
     pool_family,
 )
-from service import histories, metrics, products
+from service import histories, json_text, metrics, products
 from service.errors import ErrorItem, InvalidInput, NotFound
 from service.numeric import NUMERIC_FAILURES, strict_floats, unusable
 from service.settings import Settings
@@ -291,7 +290,7 @@ def row_values(
     if encoded:
         spec: Any = _spec_json(fit.spec)
         result: Any = result_json if result_json is not None else encode_result(fit)
-        gates_column: Any = _JSON.encode(gates_record)
+        gates_column: Any = json_text.dumps(gates_record)
     else:
         spec, result, gates_column = fit.spec.to_dict(), fit.to_dict(), gates_record
     return {
@@ -312,20 +311,16 @@ def row_values(
     }
 
 
-# The JSON text the JSON columns would hold (json.dumps' defaults, without the check
-# for circular references: records are trees).
-_JSON = json.JSONEncoder(check_circular=False)
-
-
 def encode_result(fit: DemandFit) -> str:
-    """A fit's record as the text of its ``result`` column (the costly part of a record)."""
-    return _JSON.encode(fit.to_dict())
+    """A fit's record as the text of its ``result`` column (the costly part of a record),
+    as the ORM would write it (the engine encodes JSON columns with the same function)."""
+    return json_text.dumps(fit.to_dict())
 
 
 @functools.lru_cache(maxsize=64)
 def _spec_json(spec: ModelSpec) -> str:
     """A spec's JSON text: every record of a batch shares its spec, so it is encoded once."""
-    return _JSON.encode(spec.to_dict())
+    return json_text.dumps(spec.to_dict())
 
 
 # The columns of row_values, in the order insert_rows writes them.
