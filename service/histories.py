@@ -1,23 +1,16 @@
-"""Reading stored observations into the arrays the numerical library fits.
+"""Histories of products as the numerical library fits them, from stored observations.
 
-One query reads the histories of a whole batch of products; rows become numpy arrays
-in bulk and are split per product at the boundaries of the product id, so the cost per
-row stays a few C-level operations (a refit job is bound by reading its data).
-
-A caller that knows which covariates it needs (a refit job: those its spec names) has
-the database take them out of the stored JSON documents, so that no document is decoded
-in Python: PostgreSQL hands each over as a float column; SQLite hands over all of a row's
-numbers as one JSON array (one parse of the document instead of one per name), whose
-text numpy reads in one call. Without names, every covariate is read from the documents
-(the charts show whatever a product has).
+`service.history_rows` reads a whole batch's rows into arrays with one query; here they
+are split per product at the boundaries of the product id, covariates a product never
+has are dropped, and other products' prices are aligned to each product's periods.
 """
 
 from __future__ import annotations
 
-import json
+import functools
 import re
-from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -26,37 +19,20 @@ from sqlalchemy.orm import Session
 
 from models.history import History
 from service.errors import ErrorItem, InvalidInput
+from service.history_rows import RowsRead, read_rows
 from service.schemas import NAME_PATTERN
 from service.tables import ProductRow
 
-# Periods as days since 1970-01-01 (exact in a double) and an unknown in_stock as in
-# stock, so that every value read is a number or NULL and the rows become one float
-# matrix in one call.
-_DAYS = {
-    "sqlite": "CAST(julianday(period) - 2440587.5 AS INTEGER)",
-    "postgresql": "period - DATE '1970-01-01'",
-}
-_IN_STOCK = {"sqlite": "coalesce(in_stock, 1)", "postgresql": "coalesce(in_stock, TRUE)"}
-# One covariate as a float column, NULL where a period has none. The JSON path (SQLite,
-# where a name in double quotes is one key) or key (PostgreSQL) is a bound parameter.
-_COVARIATE = {
-    "sqlite": "json_extract(covariates, ?)",
-    "postgresql": "(covariates ->> %s::text)::float8",
-}
-_FROM = "FROM observations WHERE product_id IN ({ids}) ORDER BY product_id, period"
-_COUNTS = (
-    "SELECT product_id, count(*) FROM observations WHERE product_id IN ({ids}) "
-    "GROUP BY product_id ORDER BY product_id"
+_PRICE_SQL = (
+    "SELECT product_id, period, price FROM observations WHERE product_id IN ({ids}) "
+    "ORDER BY product_id, period"
 )
-_PRICE_SQL = "SELECT product_id, period, price " + _FROM
 # Names the service accepts for covariates (ingest refuses others): only these can be
 # stored, and each can be quoted as one key of an SQLite JSON path.
 _EXTRACTABLE = re.compile(NAME_PATTERN)
-# What SQLite's arrays of numbers are made of, once brackets are gone and null is nan.
-_NOT_NUMBER_TEXT = str.maketrans("", "", "0123456789+-.eEna,")
-# An integer minus zero ("-0", which CSV imports store as sent): JSON makes it the
-# integer 0, a float parser -0.0.
-_MINUS_ZERO_INTEGER = re.compile(r"(?<![0-9.eE])-0(?![0-9.eE])")
+
+ReadRows = Callable[[Sequence[int], list[str] | None], RowsRead]
+"""Reads the rows of these product ids (covariates: these names, or all with None)."""
 
 
 @dataclass(frozen=True)
@@ -91,12 +67,22 @@ def _check_cross_skus(session: Session, own: str, skus: Sequence[str]) -> list[s
     return list(skus)
 
 
+def names_to_read(covariates: Sequence[str] | None) -> list[str] | None:
+    """The covariate names to have the database extract: these, or None (read whole
+    documents) when a name is not one the service accepts, as no document holds it."""
+    if covariates is None:
+        return None
+    names = list(dict.fromkeys(covariates))
+    return names if all(_EXTRACTABLE.match(n) for n in names) else None
+
+
 def load_histories(
     session: Session,
     products: Sequence[ProductRef],
     cross_skus: dict[str, list[str]] | None = None,
     *,
     covariates: Sequence[str] | None = None,
+    rows: ReadRows | None = None,
 ) -> list[History]:
     """Histories of many products (in the given order), read with one query.
 
@@ -106,23 +92,20 @@ def load_histories(
 
     ``covariates`` names the covariates to read (None: all of them). Either way a
     history holds a covariate only if the product has at least one value of it.
+    ``rows`` reads the products' rows in place of ``session`` (a refit job's reader
+    process); other products' prices are still read through ``session``.
     """
     if not products:
         return []
-    names = None if covariates is None else list(dict.fromkeys(covariates))
-    if names is not None and not all(_EXTRACTABLE.match(n) for n in names):
-        # No stored document can hold such a name; read the documents (as without names).
-        return [
-            replace(h, covariates={k: v for k, v in h.covariates.items() if k in names})
-            for h in load_histories(session, products, cross_skus)
-        ]
-    ids = ",".join(str(int(p.id)) for p in products)
-    read = None
-    if names is not None and len(names) > 1 and session.connection().dialect.name == "sqlite":
-        read = _read_sqlite_arrays(session, ids, names)
-    if read is None:
-        read = _read_rows(session, ids, names)
-    product_id, matrix, values = read
+    keep = None if covariates is None else list(dict.fromkeys(covariates))
+    names = names_to_read(covariates)
+    ids = [p.id for p in products]
+    if rows is None:
+        dialect = session.connection().dialect.name
+        rows = functools.partial(read_rows, functools.partial(_fetch, session), dialect)
+    product_id, matrix, values = rows(ids, names)
+    if keep is not None:
+        values = {name: column for name, column in values.items() if name in keep}
     if np.isnan(matrix[:, 0]).any():
         raise ValueError("a stored period is not a date")
     periods = matrix[:, 0].astype(np.int64).astype("datetime64[D]")
@@ -132,8 +115,8 @@ def load_histories(
     wanted = sorted({s for skus in (cross_skus or {}).values() for s in skus})
     cross = _price_series(session, wanted)
 
-    ends = np.searchsorted(product_id, [p.id for p in products], side="right")
-    starts = np.searchsorted(product_id, [p.id for p in products], side="left")
+    ends = np.searchsorted(product_id, ids, side="right")
+    starts = np.searchsorted(product_id, ids, side="left")
     # Whether each product has any value of each covariate: counts of values before each row.
     present = {}
     for name, column in values.items():
@@ -166,71 +149,6 @@ def load_histories(
     return out
 
 
-_Read = tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]
-"""Product id per row; days, price, units, unit_cost, in_stock per row as a float
-matrix; one float array per covariate."""
-
-
-def _read_rows(session: Session, ids: str, names: list[str] | None) -> _Read:
-    """The plain way: a row per observation, covariates as float columns (or documents)."""
-    dialect = session.connection().dialect.name
-    head = f"product_id, {_DAYS[dialect]}, price, units, unit_cost, {_IN_STOCK[dialect]}"
-    if names is None:
-        rows = _fetch(session, f"SELECT {head}, covariates {_FROM.format(ids=ids)}", ())
-        values = _covariate_columns([row[6] for row in rows])
-        rows = [row[:6] for row in rows]
-        width = 6
-    else:
-        extracted = "".join(f", {_COVARIATE[dialect]}" for _ in names)
-        params = [f'$."{name}"' for name in names] if dialect == "sqlite" else names
-        rows = _fetch(session, f"SELECT {head}{extracted} {_FROM.format(ids=ids)}", params)
-        width = 6 + len(names)
-    # Every value is a number or NULL: one conversion makes the float matrix (NULL: nan).
-    matrix = np.array(rows, dtype=np.float64).reshape(len(rows), width)
-    if names is not None:
-        values = {name: np.ascontiguousarray(matrix[:, 6 + i]) for i, name in enumerate(names)}
-    return matrix[:, 0].astype(np.int64), matrix[:, 1:6], values
-
-
-def _read_sqlite_arrays(session: Session, ids: str, names: list[str]) -> _Read | None:
-    """SQLite, two covariates or more: each row's covariates as one JSON array.
-
-    ``json_extract`` with several paths parses the document once and writes the numbers
-    as they are stored, so numpy's reading of the text gives the doubles ``json.loads``
-    would. The product ids come from a count per product in the same read transaction
-    (one snapshot), which spares a value per row. None if a stored value is not a number
-    (the plain way then reads them as it always did).
-    """
-    counts = _fetch(session, _COUNTS.format(ids=ids), ())
-    no_values = "[" + ",".join(["null"] * len(names)) + "]"
-    paths = ", ".join("?" for _ in names)
-    rows = _fetch(
-        session,
-        f"SELECT {_DAYS['sqlite']}, price, units, unit_cost, {_IN_STOCK['sqlite']}, "
-        f"coalesce(json_extract(covariates, {paths}), ?) {_FROM.format(ids=ids)}",
-        [*(f'$."{name}"' for name in names), no_values],
-    )
-    if len(rows) != sum(n for _, n in counts):
-        raise RuntimeError("observations changed within one read transaction")
-    text = ",".join([row[5] for row in rows]).replace("[", "").replace("]", "")
-    text = text.replace("null", "nan")
-    if text.translate(_NOT_NUMBER_TEXT):
-        return None
-    if "-0" in text:
-        text = _MINUS_ZERO_INTEGER.sub("0", text)
-    numbers = np.fromstring(text, sep=",") if rows else np.empty(0)
-    if numbers.size != len(rows) * len(names):
-        return None
-    covariates = numbers.reshape(len(rows), len(names))
-    matrix = np.array([row[:5] for row in rows], dtype=np.float64).reshape(len(rows), 5)
-    product_id = np.repeat(
-        np.array([p for p, _ in counts], dtype=np.int64),
-        np.array([n for _, n in counts], dtype=np.int64),
-    )
-    values = {name: np.ascontiguousarray(covariates[:, i]) for i, name in enumerate(names)}
-    return product_id, matrix, values
-
-
 def _fetch(session: Session, sql: str, params: Sequence[Any]) -> Sequence[Any]:
     """All rows of a query, through the driver's own cursor in the session's transaction
     (plain tuples: no result objects per row; binary values from PostgreSQL, which are
@@ -255,24 +173,6 @@ def _dates(values: Sequence[object]) -> np.ndarray:
     if isinstance(values[0], str):  # SQLite keeps dates as ISO text
         return np.array(values, dtype="datetime64[D]")
     return np.array([v.isoformat() for v in values], dtype="datetime64[D]")  # type: ignore[attr-defined]
-
-
-def _covariate_columns(raw: Sequence[object]) -> dict[str, np.ndarray]:
-    """One float array per covariate name, ``nan`` where a period has no value."""
-    if not raw:
-        return {}
-    if isinstance(next((v for v in raw if v is not None), None), str):
-        # SQLite returns JSON text: parse every row in one call instead of one per row.
-        documents = json.loads("[" + ",".join(v if v is not None else "null" for v in raw) + "]")  # type: ignore[misc]
-    else:
-        documents = list(raw)
-    names = sorted({name for doc in documents if doc for name in doc})
-    return {
-        name: np.array(
-            [doc.get(name, np.nan) if doc else np.nan for doc in documents], dtype=np.float64
-        )
-        for name in names
-    }
 
 
 def _price_series(

@@ -5,25 +5,29 @@ batch's fits, activations and the job's progress are written in one transaction.
 Incremental by default: a product whose latest fit is newer than its last history
 change is skipped unless the job is forced.
 
-Each batch is read, fitted, then written. On PostgreSQL the reads and the writes run in
-threads of their own, so the server reads the next batch and stores the last while this
-process fits (the driver waits for the server without holding the interpreter); batches
-are still written one after the other, in order. SQLite works in this process, and its
-driver lets go of the interpreter at every row, so there everything runs in turn.
+Each batch is read, fitted, then written, and the next batch is read while this one is
+fitted. On PostgreSQL the reads and the writes run in threads of their own, so the
+server reads the next batch and stores the last while this process fits (the driver
+waits for the server without holding the interpreter); batches are still written one
+after the other, in order. On SQLite the driver takes the interpreter back for every
+row, so threads would only take turns: a reader process (`service.history_reader`)
+reads the next batch's rows while this process fits and writes. Should that process
+fail, the job reads the rest itself.
 """
 
 from __future__ import annotations
 
 import functools
 import json
-from collections import defaultdict
+import logging
+from collections import defaultdict, deque
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any, Generic, Protocol, TypeVar
 
-from sqlalchemy import Text, cast, func, select, update
+from sqlalchemy import Text, cast, func, make_url, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import DemandFit, FitFailure, History, ModelSpec, SpecError, fit_many
@@ -38,11 +42,15 @@ from service.fits import (
     quality_gates,
     row_values,
 )
-from service.histories import ProductRef, load_histories
+from service.histories import ProductRef, ReadRows, load_histories, names_to_read
+from service.history_reader import HistoryReader, ReaderFailed
+from service.history_rows import RowsRead
 from service.ingest import cyclic_gc_paused
 from service.numeric import NUMERIC_FAILURES, reason, strict_floats
 from service.settings import Settings
 from service.tables import FitRow, JobRow, ProductRow, as_utc
+
+log = logging.getLogger(__name__)
 
 T = TypeVar("T")
 T_co = TypeVar("T_co", covariant=True)
@@ -165,16 +173,16 @@ def run_refit(
     batches = _batches(candidates, settings.job_batch_size)
     fitted = [b for b in batches if b.spec is not None]
     threads = not settings.is_sqlite
-    with _lane(threads, "marginal-refit-read") as reader, _lane(
+    with _read_lane(reads, settings, len(fitted)) as read_lane, _lane(
         threads, "marginal-refit-write"
     ) as writer:
         upcoming = iter(fitted)
 
         def read_next() -> _Task[list[History]] | None:
             batch = next(upcoming, None)
-            return None if batch is None else reader(_read, reads, batch)
+            return None if batch is None else read_lane.read(batch)
 
-        reading = read_next()
+        reading = deque([read_next() for _ in range(read_lane.ahead)])
         writing: _Task[None] | None = None
 
         def settle() -> None:
@@ -196,9 +204,10 @@ def run_refit(
                     progress.done += len(batch.members)
                     jobs.save_progress(session, job_id=job_id, progress=progress)
                 continue
-            assert reading is not None
-            histories = reading.result()
-            reading = read_next()
+            task = reading.popleft()
+            assert task is not None
+            histories = task.result()
+            reading.append(read_next())
             families = {c.sku: c.family or "" for c in batch.members}
             # Histories, fits and records are many short-lived objects without cycles:
             # collector passes over them cost about a third of a batch and free nothing.
@@ -261,7 +270,118 @@ def _lane(thread: bool, name: str) -> Iterator[Callable[..., _Task[Any]]]:
         executor.shutdown(wait=True, cancel_futures=True)
 
 
-def _read(reads: sessionmaker[Session], batch: _Batch) -> list[History]:
+@dataclass(frozen=True)
+class _ReadLane:
+    """How a job reads its batches: ``read`` begins reading one (in the order fitted)
+    and ``ahead`` is how many to have begun beyond the one being fitted."""
+
+    read: Callable[[_Batch], _Task[list[History]]]
+    ahead: int = 1
+
+
+@contextmanager
+def _read_lane(
+    reads: sessionmaker[Session], settings: Settings, n_batches: int
+) -> Iterator[_ReadLane]:
+    """A thread that reads (PostgreSQL); reader processes (SQLite, two batches or more);
+    or this thread, when the histories are asked for."""
+    database = make_url(settings.database_url).database if settings.is_sqlite else None
+    if not settings.is_sqlite:
+        with _lane(True, "marginal-refit-read") as submit:
+            yield _ReadLane(lambda batch: submit(_read, reads, batch))
+        return
+    if (
+        settings.job_read_processes == 0
+        or n_batches < 2
+        or not database
+        or database == ":memory:"
+        or database.startswith("file:")
+    ):
+        yield _ReadLane(lambda batch: _Later(_read, reads, batch))
+        return
+    processes = _ProcessReads(reads, n_batches)
+    try:
+        for _ in range(min(settings.job_read_processes, n_batches - 1)):
+            processes.start(database, settings.sqlite_busy_timeout_ms)
+        yield _ReadLane(processes.read, ahead=processes.count + 1)
+    finally:
+        processes.close()
+
+
+class _ProcessReads:
+    """Batches read by reader processes in turn; if one fails, this process reads the
+    batches it had and all later ones.
+
+    The first batch is read here, while the processes start and read the next ones.
+    Once every batch has been asked for, the processes are told that no more will
+    come, so they end as soon as they have answered.
+    """
+
+    def __init__(self, reads: sessionmaker[Session], n_batches: int) -> None:
+        self._reads = reads
+        self._readers: list[HistoryReader] = []
+        self._asked = 0
+        self._n_batches = n_batches
+        self._failed = False
+
+    @property
+    def count(self) -> int:
+        return len(self._readers)
+
+    def start(self, database: str, busy_timeout_ms: int) -> None:
+        try:
+            self._readers.append(HistoryReader(database, busy_timeout_ms))
+        except OSError as exc:
+            log.warning("refit reads in its own process: no reader process (%s)", exc)
+
+    def read(self, batch: _Batch) -> _Task[list[History]]:
+        turn, self._asked = self._asked, self._asked + 1
+        if turn == 0 or self._failed or not self._readers:
+            return _Later(_read, self._reads, batch)
+        assert batch.spec is not None
+        reader = self._readers[(turn - 1) % len(self._readers)]
+        asked = ([c.id for c in batch.members], names_to_read(covariates_used(batch.spec)))
+        try:
+            reader.ask(*asked)
+            if self._asked == self._n_batches:
+                for each in self._readers:
+                    each.no_more_requests()
+            return _Later(self._answer, reader, batch, asked)
+        except ReaderFailed as exc:
+            self._give_up(exc)
+            return _Later(_read, self._reads, batch)
+
+    def _answer(
+        self, reader: HistoryReader, batch: _Batch, asked: tuple[list[int], list[str] | None]
+    ) -> list[History]:
+        if not self._failed:
+            try:
+                answer = reader.answer()
+            except ReaderFailed as exc:
+                self._give_up(exc)
+            else:
+
+                def rows(ids: Sequence[int], names: list[str] | None) -> RowsRead:
+                    assert (list(ids), names) == asked, "a batch read other than the one asked"
+                    return answer
+
+                return _read(self._reads, batch, rows=rows)
+        return _read(self._reads, batch)
+
+    def _give_up(self, exc: ReaderFailed) -> None:
+        log.warning("refit reads in its own process from now on: %s", exc)
+        self._failed = True
+        self.close()
+
+    def close(self) -> None:
+        readers, self._readers = self._readers, []
+        for reader in readers:
+            reader.close()
+
+
+def _read(
+    reads: sessionmaker[Session], batch: _Batch, *, rows: ReadRows | None = None
+) -> list[History]:
     assert batch.spec is not None
     spec = batch.spec
     cross = {c.sku: [s for s in spec.cross_prices if s != c.sku] for c in batch.members}
@@ -271,6 +391,7 @@ def _read(reads: sessionmaker[Session], batch: _Batch) -> list[History]:
             [ProductRef(c.id, c.sku) for c in batch.members],
             cross,
             covariates=covariates_used(spec),
+            rows=rows,
         )
 
 

@@ -65,6 +65,13 @@ class Settings(BaseSettings):
     job_batch_size: int = Field(
         default=500, ge=1, description="Products a job fits and commits together"
     )
+    job_read_processes: int = Field(
+        default=2,
+        ge=0,
+        description="SQLite: processes that read a refit job's histories while the job "
+        "fits and writes (SQLite's driver holds the job's interpreter for every row it "
+        "reads); 0: the job's own process reads, fits and writes in turn",
+    )
     worker_poll_seconds: float = 1.0
     scheduler_tick_seconds: float = 15.0
     job_stale_seconds: float = Field(

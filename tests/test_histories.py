@@ -15,15 +15,21 @@ from __future__ import annotations
 
 import json
 import math
+import os
+import signal
+import sqlite3
 from collections.abc import Iterator, Sequence
+from pathlib import Path
 
 import numpy as np
 import pytest
+from sqlalchemy import make_url
 
 from models import History
 from service import products
 from service.db import make_engine, make_session_factory, session_scope
 from service.histories import ProductRef, load_histories
+from service.history_reader import HistoryReader, ReaderFailed
 from service.observations import ObservationTuple, ObservationWriter
 from tests.conftest import Database
 
@@ -231,3 +237,78 @@ def test_sqlite_reads_a_value_that_is_not_a_number_as_before(db: Database) -> No
     [plain] = _read(db, refs, None)
     _assert_same(named, plain, ["a", "b"])
     assert named.covariates["a"].tolist() == [1.0, 0.0]
+    reader = HistoryReader(str(make_url(db.settings.database_url).database), 1000)
+    try:
+        reader.ask([ids["H-BOOL"]], ["a", "b"])
+        answer = reader.answer()
+    finally:
+        reader.close()
+    engine = make_engine(db.settings)
+    with session_scope(make_session_factory(engine, writer=False)) as session:
+        [through] = load_histories(session, refs, covariates=["a", "b"], rows=lambda i, n: answer)
+    engine.dispose()
+    _assert_same(through, plain, ["a", "b"])
+
+
+@pytest.mark.parametrize("names", [["a", "b.c-d", "z"], ["a"], None])
+def test_a_reader_process_reads_what_this_process_reads(
+    stored: tuple[Database, list[ProductRef]], names: list[str] | None
+) -> None:
+    """A refit job on SQLite has reader processes read its rows: the arrays that come
+    back through the pipe are the doubles this process reads, minus zero included."""
+    db, refs = stored
+    if db.backend != "sqlite":
+        pytest.skip("reader processes serve SQLite only")
+    path = make_url(db.settings.database_url).database
+    assert path
+    reader = HistoryReader(path, db.settings.sqlite_busy_timeout_ms)
+    try:
+        for _ in range(2):  # one process answers request after request
+            reader.ask([r.id for r in refs], names)
+        answers = [reader.answer(), reader.answer()]
+    finally:
+        reader.close()
+    want = _read(db, refs, names)
+    engine = make_engine(db.settings)
+    for answer in answers:
+        with session_scope(make_session_factory(engine, writer=False)) as session:
+            got = load_histories(
+                session, refs, covariates=names, rows=lambda ids, n, rows=answer: rows
+            )
+        for g, w in zip(got, want, strict=True):
+            _assert_same(g, w, list(w.covariates) if names is None else names)
+    engine.dispose()
+
+
+def test_a_reader_process_says_why_it_could_not_read(tmp_path: Path) -> None:
+    empty = tmp_path / "not-marginal.db"
+    sqlite3.connect(empty).close()
+    reader = HistoryReader(str(empty), 1000)
+    try:
+        reader.ask([1, 2], ["a", "b"])
+        with pytest.raises(ReaderFailed, match="no such table: observations"):
+            reader.answer()
+        reader.ask([1], None)  # it goes on answering
+        with pytest.raises(ReaderFailed, match="no such table"):
+            reader.answer()
+    finally:
+        reader.close()
+
+
+def test_a_reader_process_that_died_is_reported(tmp_path: Path) -> None:
+    reader = HistoryReader(str(tmp_path / "x.db"), 1000)
+    try:
+        os.kill(reader.pid, signal.SIGKILL)
+        reader.wait_for_exit()
+        with pytest.raises(ReaderFailed, match="reader process"):
+            reader.ask([1], None)
+            reader.answer()
+    finally:
+        reader.close()
+
+
+def test_a_reader_process_ends_when_its_input_closes(tmp_path: Path) -> None:
+    reader = HistoryReader(str(tmp_path / "x.db"), 1000)
+    reader.no_more_requests()
+    assert reader.wait_for_exit() == 0
+    reader.close()

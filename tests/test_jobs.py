@@ -177,6 +177,20 @@ def test_the_service_worker_runs_jobs_in_the_background(
         assert "marginal_http_requests_total" in metrics
 
 
+def _reader_processes(settings: Settings) -> list[int]:
+    """Reader processes (service.history_reader) of this test's SQLite database."""
+    database = sa.make_url(settings.database_url).database or "-"
+    found = []
+    for entry in Path("/proc").iterdir():
+        try:
+            words = (entry / "cmdline").read_bytes().split(b"\0")
+        except OSError:
+            continue
+        if b"service.history_reader" in words and database.encode() in words:
+            found.append(int(entry.name))
+    return found
+
+
 @pytest.fixture
 def slow_batches(db: Database) -> Iterator[dict[str, str]]:
     env = dict(os.environ)
@@ -214,9 +228,17 @@ def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
             done = conn.execute(
                 sa.text("SELECT coalesce(max(done), 0) FROM jobs WHERE status = 'running'")
             ).scalar_one()
+    readers = _reader_processes(db.settings)
     child.send_signal(signal.SIGKILL)
     child.wait(timeout=30)
     assert 5 <= done < 40, "the job must be killed part of the way through"
+    if db.backend == "sqlite":
+        # The job's reader processes were running, and end with the job's process.
+        assert readers
+        deadline = time.monotonic() + 30
+        while _reader_processes(db.settings) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert not _reader_processes(db.settings)
 
     after = active_fits(db.settings)
     assert after == before  # every product still has exactly its one active fit

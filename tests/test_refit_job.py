@@ -14,6 +14,8 @@ data are the invented demo shop (models.scenario), its traps included.
 from __future__ import annotations
 
 import math
+import os
+import signal
 from typing import Any
 
 import pytest
@@ -24,6 +26,7 @@ from models import DemandFit, ModelSpec, fit_many
 from service import demo, fits, jobs, refit
 from service.db import make_engine, make_session_factory, session_scope
 from service.histories import load_history
+from service.history_reader import HistoryReader
 from service.settings import Settings
 from service.tables import FitRow, JobRow, ProductRow
 from service.worker import JobRunner
@@ -196,3 +199,82 @@ def test_bulk_written_records_equal_orm_written_ones(db: Database) -> None:
         ).all()
     engine.dispose()
     assert texts[0] == texts[1]  # the same JSON text (SQLite) or the same jsonb
+
+
+@pytest.fixture
+def readers(monkeypatch: pytest.MonkeyPatch) -> list[HistoryReader]:
+    """Every reader process a job starts, and how many batches each answered."""
+    started: list[HistoryReader] = []
+    original_init, original_answer = HistoryReader.__init__, HistoryReader.answer
+
+    def init(self: HistoryReader, *args: Any) -> None:
+        original_init(self, *args)
+        self.answered = 0  # type: ignore[attr-defined]
+        started.append(self)
+
+    def answer(self: HistoryReader) -> Any:
+        rows = original_answer(self)
+        self.answered += 1  # type: ignore[attr-defined]
+        return rows
+
+    monkeypatch.setattr(HistoryReader, "__init__", init)
+    monkeypatch.setattr(HistoryReader, "answer", answer)
+    return started
+
+
+def _results(settings: Settings, version: int) -> dict[int, str]:
+    engine = make_engine(settings)
+    with engine.connect() as conn:
+        rows = conn.execute(
+            sa.text("SELECT product_id, result FROM fits WHERE version = :v"), {"v": version}
+        ).all()
+    engine.dispose()
+    return dict(rows)  # type: ignore[arg-type]
+
+
+def test_reader_processes_give_the_records_one_process_gives(
+    db: Database, readers: list[HistoryReader]
+) -> None:
+    """SQLite: batches read by reader processes are fitted into the very records the
+    job's own process makes when it reads them itself."""
+    if db.backend != "sqlite":
+        pytest.skip("reader processes serve SQLite only")
+    demo.load(db.settings, seed=7)
+    alone = db.settings.model_copy(update={"job_batch_size": 4, "job_read_processes": 0})
+    assert _run(alone)[0] == "succeeded" and readers == []
+    helped = alone.model_copy(update={"job_read_processes": 2})
+    status, seen = _run(helped)
+    assert status == "succeeded" and seen[-1] == 40
+    assert len(readers) == 2 and all(r.answered >= 3 for r in readers)  # type: ignore[attr-defined]
+    assert all(r.wait_for_exit() == 0 for r in readers)
+    first, second = _results(db.settings, 1), _results(db.settings, 2)
+    assert len(first) == 39 and first == second  # one tin is too short to fit
+
+
+def test_a_job_reads_the_rest_itself_when_a_reader_process_dies(
+    db: Database, readers: list[HistoryReader], caplog: pytest.LogCaptureFixture
+) -> None:
+    if db.backend != "sqlite":
+        pytest.skip("reader processes serve SQLite only")
+    demo.load(db.settings, seed=7)
+    settings = db.settings.model_copy(update={"job_batch_size": 4})
+    engine = make_engine(settings)
+    with session_scope(make_session_factory(engine, writer=True)) as session:
+        job_id = jobs.create(session, kind="refit", scope="all", force=True).id
+    runner = JobRunner(engine, settings)
+    runner.claim(job_id)
+
+    killed: list[int] = []
+
+    def kill_the_readers(progress: jobs.Progress) -> None:
+        if progress.done > 0 and not killed:
+            assert len(readers) == 2
+            for reader in readers:
+                os.kill(reader.pid, signal.SIGKILL)
+                killed.append(reader.wait_for_exit())
+
+    status = runner.run(job_id, on_progress=kill_the_readers)
+    engine.dispose()
+    assert status == "succeeded" and killed == [-signal.SIGKILL] * 2
+    assert "reads in its own process from now on" in caplog.text
+    assert len(_check_records(settings, None)) == 40
