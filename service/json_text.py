@@ -20,5 +20,5 @@ def dumps(value: Any) -> str:
     """Compact JSON text (UTF-8 as is; NaN and infinities become null)."""
     try:
         return orjson.dumps(value, option=_OPTIONS).decode()
-    except TypeError:  # what orjson refuses, such as integers beyond 64 bits
-        return json.dumps(value, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
+    except TypeError:  # what orjson refuses: integers beyond 64 bits, lone surrogates
+        return json.dumps(value, separators=(",", ":"))  # (escaped: storable as UTF-8)
