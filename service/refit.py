@@ -25,6 +25,7 @@ from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any, Generic, Protocol, TypeVar
 
 from sqlalchemy import Text, cast, func, make_url, select, update
@@ -302,7 +303,7 @@ def _read_lane(
     processes = _ProcessReads(reads, n_batches)
     try:
         for _ in range(min(settings.job_read_processes, n_batches - 1)):
-            processes.start(database, settings.sqlite_busy_timeout_ms)
+            processes.start(str(Path(database).resolve()), settings.sqlite_busy_timeout_ms)
         yield _ReadLane(processes.read, ahead=processes.count + 1)
     finally:
         processes.close()
