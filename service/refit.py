@@ -10,9 +10,9 @@ fitted. On PostgreSQL the reads and the writes run in threads of their own, so t
 server reads the next batch and stores the last while this process fits (the driver
 waits for the server without holding the interpreter); batches are still written one
 after the other, in order. On SQLite the driver takes the interpreter back for every
-row, so threads would only take turns: a reader process (`service.history_reader`)
-reads the next batch's rows while this process fits and writes. Should that process
-fail, the job reads the rest itself.
+row, so threads would only take turns: reader processes (`service.history_reader`)
+read the next batches' rows while this process fits and writes. Should one fail, the
+job reads the rest itself.
 """
 
 from __future__ import annotations
