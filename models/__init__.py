@@ -5,7 +5,7 @@ The public surface is re-exported here; submodules are implementation detail.
 
 from models.design import Term
 from models.elasticity import ElasticityReport, ElasticityRow, elasticities
-from models.errors import InsufficientDataError, ModelWarning, UnusableDataError
+from models.errors import InsufficientDataError, SpecError, UnusableDataError
 from models.fit import fit_demand, fit_many
 from models.history import History
 from models.ols import OLSStack, fit_ols_stack, newey_west_lags
@@ -47,7 +47,7 @@ from models.scenario import (
     generate_catalogue,
     simulate_product,
 )
-from models.spec import ModelSpec, SpecError
+from models.spec import ModelSpec
 
 __all__ = [
     "Catalogue",
@@ -69,7 +69,6 @@ __all__ = [
     "InvalidConstraintsError",
     "MissingUnitCostError",
     "ModelSpec",
-    "ModelWarning",
     "OLSStack",
     "PooledElasticity",
     "Prediction",

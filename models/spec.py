@@ -10,6 +10,8 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields
 from typing import Any, Final
 
+from models.errors import SpecError
+
 FORMS: Final = ("linear", "log-log", "semi-log", "poisson", "auto")
 FITTED_FORMS: Final = ("linear", "log-log", "semi-log", "poisson")
 LOG_RESPONSE_FORMS: Final = ("log-log", "semi-log")
@@ -17,20 +19,6 @@ SEASONALITIES: Final = ("none", "month", "fourier")
 STANDARD_ERRORS: Final = ("classical", "hc3", "hac")
 POOLINGS: Final = ("none", "family")
 UNIT_COST: Final = "unit_cost"
-
-
-class SpecError(ValueError):
-    """An invalid model specification.
-
-    Attributes
-    ----------
-    problems : list of (field, message)
-        Every problem found, so a client can fix them in one go.
-    """
-
-    def __init__(self, problems: Sequence[tuple[str, str]]) -> None:
-        self.problems = list(problems)
-        super().__init__("; ".join(f"{name}: {message}" for name, message in self.problems))
 
 
 @dataclass(frozen=True)

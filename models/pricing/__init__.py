@@ -4,9 +4,7 @@ Public entry points are :func:`optimal_price` and :func:`optimal_family_prices`;
 are re-exported from :mod:`models`.
 """
 
-from models.pricing.constraints import PriceConstraints
-from models.pricing.curve import DemandCurve
-from models.pricing.errors import (
+from models.errors import (
     InfeasibleConstraintsError,
     InvalidConstraintsError,
     MissingUnitCostError,
@@ -14,6 +12,8 @@ from models.pricing.errors import (
     UnboundedObjectiveError,
     WrongSignError,
 )
+from models.pricing.constraints import PriceConstraints
+from models.pricing.curve import DemandCurve
 from models.pricing.family import optimal_family_prices
 from models.pricing.result import (
     CurvePoint,

@@ -16,7 +16,7 @@ from typing import Any, Final
 import numpy as np
 
 from models._typing import FloatArray
-from models.pricing.errors import InfeasibleConstraintsError, InvalidConstraintsError
+from models.errors import InfeasibleConstraintsError, InvalidConstraintsError
 
 OBSERVED_RANGE: Final = "observed_price_range"
 """Name of the default extrapolation guard when it limits the price."""

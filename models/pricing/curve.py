@@ -18,7 +18,7 @@ from typing import Final
 import numpy as np
 
 from models._typing import FloatArray
-from models.pricing.errors import PricingInputError
+from models.errors import PricingInputError
 from models.result import DemandFit
 from models.spec import LOG_RESPONSE_FORMS
 

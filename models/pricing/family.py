@@ -20,10 +20,10 @@ import numpy as np
 from scipy import optimize
 
 from models._typing import FloatArray
+from models.errors import MissingUnitCostError, PricingInputError, UnboundedObjectiveError
 from models.guards import price_range_warning
 from models.pricing import notes
 from models.pricing.constraints import PriceConstraints, interval, price_limits
-from models.pricing.errors import MissingUnitCostError, PricingInputError, UnboundedObjectiveError
 from models.pricing.inputs import check_draws, check_objective, check_signs, check_value
 from models.pricing.joint import FamilyDemand
 from models.pricing.joint_draws import DrawFigures, Search, family_draws

@@ -9,8 +9,8 @@ from typing import Final
 import numpy as np
 
 from models._typing import FloatArray
+from models.errors import PricingInputError, WrongSignError
 from models.pricing.curve import own_index
-from models.pricing.errors import PricingInputError, WrongSignError
 from models.result import DemandFit
 
 OBJECTIVES: Final = ("profit", "revenue")

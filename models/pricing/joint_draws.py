@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from models._typing import BoolArray, FloatArray
-from models.pricing.errors import InfeasibleConstraintsError
+from models.errors import InfeasibleConstraintsError
 from models.pricing.inputs import INTERVAL_LEVEL, coefficient_draws, interval
 from models.pricing.joint import FamilyDemand
 from models.pricing.joint_grid import grid_search

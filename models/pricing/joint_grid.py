@@ -10,8 +10,8 @@ from typing import Final
 import numpy as np
 
 from models._typing import FloatArray
+from models.errors import InfeasibleConstraintsError
 from models.pricing.constraints import grid_prices
-from models.pricing.errors import InfeasibleConstraintsError
 from models.pricing.joint import FamilyDemand
 from models.pricing.joint_problem import JointProblem
 

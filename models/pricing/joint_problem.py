@@ -16,9 +16,9 @@ import numpy as np
 from scipy import optimize
 
 from models._typing import FloatArray
+from models.errors import InfeasibleConstraintsError, PricingInputError
 from models.pricing.constraints import Interval, PriceConstraints
 from models.pricing.curve import DemandCurve, scenario_values
-from models.pricing.errors import InfeasibleConstraintsError, PricingInputError
 from models.pricing.joint import FamilyDemand
 from models.pricing.solve1d import at_bound, maximise
 from models.result import DemandFit

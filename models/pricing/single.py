@@ -9,16 +9,16 @@ from dataclasses import dataclass
 import numpy as np
 
 from models._typing import FloatArray
-from models.guards import price_range_warning
-from models.pricing import notes
-from models.pricing.constraints import Interval, PriceConstraints, grid_prices
-from models.pricing.curve import DemandCurve, scenario_values
-from models.pricing.errors import (
+from models.errors import (
     InfeasibleConstraintsError,
     MissingUnitCostError,
     PricingInputError,
     UnboundedObjectiveError,
 )
+from models.guards import price_range_warning
+from models.pricing import notes
+from models.pricing.constraints import Interval, PriceConstraints, grid_prices
+from models.pricing.curve import DemandCurve, scenario_values
 from models.pricing.inputs import (
     check_curve_points,
     check_draws,
