@@ -7,6 +7,7 @@ from models.design import Term
 from models.elasticity import ElasticityReport, ElasticityRow, elasticities
 from models.errors import InsufficientDataError, SpecError, UnusableDataError
 from models.fit import fit_demand, fit_many
+from models.fitted import fitted_periods, fitted_units
 from models.history import History
 from models.ols import OLSStack, fit_ols_stack, newey_west_lags
 from models.pooling import pool_family
@@ -90,6 +91,8 @@ __all__ = [
     "fit_demand",
     "fit_many",
     "fit_ols_stack",
+    "fitted_periods",
+    "fitted_units",
     "generate_catalogue",
     "newey_west_lags",
     "optimal_family_prices",
