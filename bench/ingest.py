@@ -32,8 +32,8 @@ import sqlalchemy as sa
 ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
-from service import migrate  # noqa: E402
-from service.settings import Settings  # noqa: E402
+from service.core import migrate  # noqa: E402
+from service.core.settings import Settings  # noqa: E402
 
 POSTGRES_URL = os.environ.get(
     "MARGINAL_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test"
@@ -117,8 +117,8 @@ def drop(settings: Settings) -> None:
 
 
 def create_products(settings: Settings, skus: list[str]) -> dict[str, int]:
-    from service import products
-    from service.db import make_engine, make_session_factory, session_scope
+    from service.catalogue import products
+    from service.core.db import make_engine, make_session_factory, session_scope
 
     engine = make_engine(settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
@@ -158,9 +158,9 @@ CHILD = """
 import json, resource, sys, time
 from pathlib import Path
 sys.path.insert(0, sys.argv[1])
-from service.settings import Settings
-from service.db import make_engine, make_session_factory, session_scope
-from service.ingest import import_csv
+from service.core.settings import Settings  # noqa: E402
+from service.core.db import make_engine, make_session_factory, session_scope  # noqa: E402
+from service.catalogue.ingest import import_csv  # noqa: E402
 settings = Settings.model_validate_json(sys.argv[2])
 engine = make_engine(settings)
 def high_water_mb():

@@ -33,7 +33,7 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 from bench.serving import free_port, prepare, serve  # noqa: E402
-from service.settings import Settings  # noqa: E402
+from service.core.settings import Settings  # noqa: E402
 
 FUTURE = dt.date(2030, 1, 7)  # imports write weeks no fit has seen
 MIX = (("read", 0.5), ("predict", 0.2), ("optimal-price", 0.2), ("import", 0.1))

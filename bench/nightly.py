@@ -34,12 +34,14 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from models import simulate_product  # noqa: E402
-from service import jobs, migrate, products  # noqa: E402
-from service.db import make_engine, make_session_factory, session_scope  # noqa: E402
-from service.ingest import covariates_json  # noqa: E402
-from service.observations import ObservationWriter  # noqa: E402
-from service.settings import Settings  # noqa: E402
-from service.worker import JobRunner  # noqa: E402
+from service.catalogue import products  # noqa: E402
+from service.catalogue.ingest import covariates_json  # noqa: E402
+from service.catalogue.observations import ObservationWriter  # noqa: E402
+from service.core import migrate  # noqa: E402
+from service.core.db import make_engine, make_session_factory, session_scope  # noqa: E402
+from service.core.settings import Settings  # noqa: E402
+from service.jobs import queue as jobs  # noqa: E402
+from service.jobs.worker import JobRunner  # noqa: E402
 
 POSTGRES_URL = os.environ.get(
     "MARGINAL_TEST_POSTGRES_URL", "postgresql+psycopg://postgres@127.0.0.1:5432/test"

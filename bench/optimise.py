@@ -28,7 +28,7 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from bench.serving import free_port, prepare, serve  # noqa: E402
-from service.settings import Settings  # noqa: E402
+from service.core.settings import Settings  # noqa: E402
 
 SINGLE = {"objective": "profit", "constraints": {"max_change_pct": 15}}
 

@@ -19,7 +19,7 @@ import argparse
 import time
 from collections.abc import Callable
 
-from models import (
+from models import (  # noqa: E402
     DemandFit,
     ModelSpec,
     PriceConstraints,
@@ -29,7 +29,7 @@ from models import (
     optimal_price,
     predict,
 )
-from models.scenario import COVARIATES, LOG_COVARIATES
+from models.scenario import COVARIATES, LOG_COVARIATES  # noqa: E402
 
 
 def cpu_per_call(call: Callable[[], object], repeat: int) -> float:

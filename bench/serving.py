@@ -16,10 +16,13 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 from models import generate_catalogue  # noqa: E402
-from service import auth, demo, jobs, migrate  # noqa: E402
-from service.db import make_engine, make_session_factory, session_scope  # noqa: E402
-from service.settings import Settings  # noqa: E402
-from service.worker import JobRunner  # noqa: E402
+from service.access import auth  # noqa: E402
+from service.catalogue import demo  # noqa: E402
+from service.core import migrate  # noqa: E402
+from service.core.db import make_engine, make_session_factory, session_scope  # noqa: E402
+from service.core.settings import Settings  # noqa: E402
+from service.jobs import queue as jobs  # noqa: E402
+from service.jobs.worker import JobRunner  # noqa: E402
 
 
 def prepare(settings: Settings, *, n_products: int = 50, seed: int = 11) -> str:

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 from alembic import context
 
-from service.db import make_engine
-from service.settings import Settings, get_settings
-from service.tables import Base
+from service.core.db import make_engine
+from service.core.settings import Settings, get_settings
+from service.core.tables import Base
 
 config = context.config
 settings: Settings = config.attributes.get("settings") or get_settings()

@@ -9,20 +9,20 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from service.settings import Settings, get_settings
+from service.core.settings import Settings, get_settings
 
 OPENAPI_PATH = Path(__file__).resolve().parent.parent / "openapi" / "openapi.json"
 
 
 def _db(args: argparse.Namespace, settings: Settings) -> int:
-    from service import migrate
+    from service.core import migrate
 
     if args.action == "upgrade":
         migrate.upgrade(settings, args.revision or "head")
     elif args.action == "downgrade":
         migrate.downgrade(settings, args.revision or "base")
     else:
-        from service.db import make_engine
+        from service.core.db import make_engine
 
         engine = make_engine(settings)
         print(migrate.current_revision(engine) or "(empty database)")
@@ -33,11 +33,11 @@ def _db(args: argparse.Namespace, settings: Settings) -> int:
 def _serve(args: argparse.Namespace, settings: Settings) -> int:
     import uvicorn
 
-    from service import logs
+    from service.core import logs
 
     logs.configure(settings.log_level)
     uvicorn.run(
-        "service.app:create_app",
+        "service.core.app:create_app",
         factory=True,
         host=args.host or settings.host,
         port=args.port or settings.port,
@@ -50,7 +50,7 @@ def _serve(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _demo(args: argparse.Namespace, settings: Settings) -> int:
-    from service import demo
+    from service.catalogue import demo
 
     summary = demo.load(settings, seed=args.seed)
     print(
@@ -61,8 +61,8 @@ def _demo(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _keys(args: argparse.Namespace, settings: Settings) -> int:
-    from service import auth
-    from service.db import make_engine, make_session_factory, session_scope
+    from service.access import auth
+    from service.core.db import make_engine, make_session_factory, session_scope
 
     engine = make_engine(settings)
     factory = make_session_factory(engine, writer=True)
@@ -99,10 +99,10 @@ def _scope(args: argparse.Namespace) -> object:
 
 def _run_job(args: argparse.Namespace, settings: Settings) -> int:
     """Create a job and run it here, with a progress bar on a terminal."""
-    from service import jobs as job_store
-    from service.db import make_engine, make_session_factory, session_scope
-    from service.progress import JobProgressDisplay, print_summary
-    from service.worker import JobRunner
+    from service.core.db import make_engine, make_session_factory, session_scope
+    from service.jobs import queue as job_store
+    from service.jobs.progress import JobProgressDisplay, print_summary
+    from service.jobs.worker import JobRunner
 
     request = json.loads(args.request) if getattr(args, "request", None) else None
     spec = json.loads(args.spec) if getattr(args, "spec", None) else None
@@ -131,9 +131,9 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def _jobs(args: argparse.Namespace, settings: Settings) -> int:
-    from service import jobs as job_store
-    from service.db import make_engine, make_session_factory, session_scope
-    from service.progress import print_job_list
+    from service.core.db import make_engine, make_session_factory, session_scope
+    from service.jobs import queue as job_store
+    from service.jobs.progress import print_job_list
 
     engine = make_engine(settings)
     try:
@@ -151,9 +151,10 @@ def _worker(args: argparse.Namespace, settings: Settings) -> int:
     import signal
     import threading
 
-    from service import logs, schedules
-    from service.db import make_engine, make_session_factory
-    from service.worker import JobRunner, Worker
+    from service.core import logs
+    from service.core.db import make_engine, make_session_factory
+    from service.jobs import schedules
+    from service.jobs.worker import JobRunner, Worker
 
     logs.configure(settings.log_level)
     engine = make_engine(settings)
@@ -194,7 +195,7 @@ def _report(args: argparse.Namespace, settings: Settings) -> int:
 
 
 def openapi_document() -> str:
-    from service.app import create_app
+    from service.core.app import create_app
 
     app = create_app(Settings(database_url="sqlite:///:memory:"))
     return json.dumps(app.openapi(), indent=2, sort_keys=True) + "\n"

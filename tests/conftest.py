@@ -18,11 +18,12 @@ import pytest
 import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
-from service import auth, migrate
-from service.app import create_app
-from service.db import make_engine, make_session_factory, session_scope
-from service.settings import Settings
-from service.tables import Base
+from service.access import auth
+from service.core import migrate
+from service.core.app import create_app
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.settings import Settings
+from service.core.tables import Base
 
 # Tests start the job worker and the scheduler themselves where they need them.
 os.environ.setdefault("MARGINAL_WORKER_ENABLED", "false")

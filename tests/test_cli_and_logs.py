@@ -13,7 +13,8 @@ from pathlib import Path
 import pytest
 from fastapi.testclient import TestClient
 
-from service import demo, logs
+from service.catalogue import demo
+from service.core import logs
 from tests.conftest import Database
 
 ROOT = Path(__file__).resolve().parent.parent

@@ -21,8 +21,8 @@ import httpx
 import pytest
 import sqlalchemy as sa
 
-from service.app import create_app
-from service.db import make_engine
+from service.core.app import create_app
+from service.core.db import make_engine
 from tests.conftest import Database, make_key
 from tests.live_server import serve, strict_json
 

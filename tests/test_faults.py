@@ -21,9 +21,9 @@ from fastapi.testclient import TestClient
 from sqlalchemy import event
 from sqlalchemy.exc import OperationalError
 
-from service.app import create_app
-from service.db import make_engine
-from service.settings import Settings
+from service.core.app import create_app
+from service.core.db import make_engine
+from service.core.settings import Settings
 from tests.conftest import POSTGRES_URL, Database, make_key, row_count
 from tests.live_server import TcpProxy, serve, strict_json
 

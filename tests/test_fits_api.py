@@ -7,7 +7,7 @@ import math
 import pytest
 from fastapi.testclient import TestClient
 
-from service import demo
+from service.catalogue import demo
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
@@ -242,7 +242,7 @@ def test_the_database_allows_one_active_fit_per_product(
 ) -> None:
     import sqlalchemy as sa
 
-    from service.db import make_engine
+    from service.core.db import make_engine
 
     shop.post("/v1/products/TEA-021/fits", json={"spec": NAIVE}, headers=headers)
     shop.post("/v1/products/TEA-021/fits", json={"spec": NAIVE}, headers=headers)

@@ -21,10 +21,11 @@ from schemathesis import GenerationMode
 from schemathesis.config import SchemathesisConfig
 from schemathesis.specs.openapi.checks import positive_data_acceptance
 
-from service import demo, migrate
-from service.app import create_app
-from service.settings import Settings
-from service.worker import JobRunner
+from service.catalogue import demo
+from service.core import migrate
+from service.core.app import create_app
+from service.core.settings import Settings
+from service.jobs.worker import JobRunner
 from tests.conftest import make_key
 
 EXAMPLES = int(os.environ.get("MARGINAL_FUZZ_EXAMPLES", "20"))
@@ -62,8 +63,8 @@ def fuzz_target(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[Fast
     demo.load(config, seed=7)
     key = make_key(config, "read", "write", "admin")
     app = create_app(config)
-    from service import jobs as job_store
-    from service.db import make_engine, make_session_factory, session_scope
+    from service.core.db import make_engine, make_session_factory, session_scope
+    from service.jobs import queue as job_store
 
     engine = make_engine(config)
     with session_scope(make_session_factory(engine, writer=True)) as session:

@@ -10,9 +10,9 @@ import pytest
 import sqlalchemy as sa
 from sqlalchemy.orm import Session
 
-from service import products
-from service.db import make_engine, make_session_factory
-from service.group_commit import GroupWriter
+from service.catalogue import products
+from service.core.db import make_engine, make_session_factory
+from service.core.group_commit import GroupWriter
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage

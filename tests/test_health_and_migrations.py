@@ -8,12 +8,12 @@ import pytest
 import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
-from service import migrate
-from service.app import create_app
 from service.cli import OPENAPI_PATH, openapi_document
-from service.db import make_engine
-from service.settings import Settings
-from service.tables import Base
+from service.core import migrate
+from service.core.app import create_app
+from service.core.db import make_engine
+from service.core.settings import Settings
+from service.core.tables import Base
 from tests.conftest import (
     BACKENDS,
     _new_postgres_schema,

@@ -26,11 +26,11 @@ import pytest
 from sqlalchemy import make_url
 
 from models import History
-from service import products
-from service.db import make_engine, make_session_factory, session_scope
-from service.histories import ProductRef, load_histories
-from service.history_reader import HistoryReader, ReaderFailed
-from service.observations import ObservationTuple, ObservationWriter
+from service.catalogue import products
+from service.catalogue.observations import ObservationTuple, ObservationWriter
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.estimation.histories import ProductRef, load_histories
+from service.estimation.history_reader import HistoryReader, ReaderFailed
 from tests.conftest import Database
 
 pytestmark = pytest.mark.storage

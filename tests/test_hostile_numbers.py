@@ -20,8 +20,8 @@ import pytest
 from fastapi.testclient import TestClient
 from httpx import Response
 
-from service.db import make_engine
-from service.worker import JobRunner
+from service.core.db import make_engine
+from service.jobs.worker import JobRunner
 from tests.conftest import Database
 from tests.live_server import strict_json
 

@@ -10,10 +10,10 @@ from typing import Any
 import pytest
 import sqlalchemy as sa
 
-from service import csv_columns
-from service.db import make_engine, make_session_factory, session_scope
-from service.errors import InvalidInput
-from service.ingest import UpsertOutcome, import_csv
+from service.catalogue import csv_columns
+from service.catalogue.ingest import UpsertOutcome, import_csv
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.errors import InvalidInput
 from tests.conftest import Database
 
 pytestmark = pytest.mark.storage

@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 from fastapi.testclient import TestClient
 
-from service.app import create_app
-from service.settings import Settings
+from service.core.app import create_app
+from service.core.settings import Settings
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
@@ -223,7 +223,7 @@ def test_foreign_keys_hold_again_after_an_import(
 def test_bulk_sessions_switch_foreign_keys_off_only_inside(tmp_path: Path) -> None:
     import sqlalchemy as sa
 
-    from service.db import make_engine, make_session_factory, session_scope
+    from service.core.db import make_engine, make_session_factory, session_scope
 
     engine = make_engine(Settings(database_url=f"sqlite:///{tmp_path / 'fk.db'}"))
     with session_scope(make_session_factory(engine, writer=True, bulk_load=True)) as session:

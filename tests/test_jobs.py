@@ -14,11 +14,11 @@ import pytest
 import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
-from service import demo
-from service.app import create_app
-from service.db import make_engine
-from service.settings import Settings
-from service.worker import JobRunner
+from service.catalogue import demo
+from service.core.app import create_app
+from service.core.db import make_engine
+from service.core.settings import Settings
+from service.jobs.worker import JobRunner
 from tests.conftest import Database
 
 pytestmark = pytest.mark.storage
@@ -178,7 +178,7 @@ def test_the_service_worker_runs_jobs_in_the_background(
 
 
 def _reader_processes(settings: Settings) -> list[int]:
-    """Reader processes (service.history_reader) of this test's SQLite database."""
+    """Reader processes (service.estimation.history_reader) of this test's SQLite database."""
     database = sa.make_url(settings.database_url).database or "-"
     found = []
     for entry in Path("/proc").iterdir():
@@ -186,7 +186,7 @@ def _reader_processes(settings: Settings) -> list[int]:
             words = (entry / "cmdline").read_bytes().split(b"\0")
         except OSError:
             continue
-        if b"service.history_reader" in words and database.encode() in words:
+        if b"service.estimation.history_reader" in words and database.encode() in words:
             found.append(int(entry.name))
     return found
 

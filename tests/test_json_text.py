@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import json
 
-from service.json_text import dumps
+from service.core.json_text import dumps
 
 
 def test_values_read_back_equal() -> None:

@@ -10,8 +10,8 @@ import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
 from service.cli import main as cli_main
-from service.db import make_engine
-from service.settings import Settings
+from service.core.db import make_engine
+from service.core.settings import Settings
 from tests.conftest import Database, make_key
 
 pytestmark = pytest.mark.storage
@@ -186,7 +186,7 @@ def test_cli_create_list_revoke(
 
 
 def test_cors_is_off_by_default_and_configurable(db: Database) -> None:
-    from service.app import create_app
+    from service.core.app import create_app
 
     preflight = {"Origin": "https://shop.example", "Access-Control-Request-Method": "GET"}
     with TestClient(create_app(db.settings)) as plain:
@@ -207,7 +207,7 @@ def test_key_comparison_is_constant_time(
 ) -> None:
     import hmac
 
-    from service import auth
+    from service.access import auth
 
     calls: list[tuple[str, str]] = []
     original = hmac.compare_digest
@@ -246,7 +246,7 @@ def _revoke_behind_the_process(settings: Settings, key_id: str) -> None:
 def test_verified_keys_lapse_within_the_cache_time(
     db: Database, cache_seconds: float, wait: float
 ) -> None:
-    from service.app import create_app
+    from service.core.app import create_app
 
     settings = db.settings.model_copy(update={"auth_cache_seconds": cache_seconds})
     secret = make_key(settings, "read")

@@ -10,7 +10,7 @@ from collections.abc import Callable
 import pytest
 from fastapi.testclient import TestClient
 
-from service import demo
+from service.catalogue import demo
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage
@@ -230,7 +230,7 @@ def test_wrong_sign_is_refused_unless_forced(
     # A rejected fit never becomes active; make it the active one to see the refusal.
     from sqlalchemy import text
 
-    from service.db import make_engine
+    from service.core.db import make_engine
 
     engine = make_engine(db.settings)
     with engine.begin() as conn:
@@ -327,10 +327,10 @@ def test_a_product_deleted_while_its_price_is_worked_out_is_404(
 ) -> None:
     # Prices are worked out in a read transaction and stored in a short write
     # transaction afterwards; a delete in between must not store an orphan or fail 500.
-    from service import pricing
-    from service.db import make_engine, make_session_factory, session_scope
-    from service.errors import NotFound
-    from service.schemas import OptimalPriceRequest
+    from service.core.db import make_engine, make_session_factory, session_scope
+    from service.core.errors import NotFound
+    from service.pricing import recommendations as pricing
+    from service.pricing.schemas import OptimalPriceRequest
 
     exact_product(
         client,

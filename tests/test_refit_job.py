@@ -23,13 +23,16 @@ import sqlalchemy as sa
 from sqlalchemy.orm import Session
 
 from models import DemandFit, ModelSpec, fit_many
-from service import demo, fits, jobs, refit
-from service.db import make_engine, make_session_factory, session_scope
-from service.histories import load_history
-from service.history_reader import HistoryReader
-from service.settings import Settings
-from service.tables import FitRow, JobRow, ProductRow
-from service.worker import JobRunner
+from service.catalogue import demo
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.settings import Settings
+from service.core.tables import FitRow, JobRow, ProductRow
+from service.estimation import fit_store, fits, refit
+from service.estimation import gates as gates_module
+from service.estimation.histories import load_history
+from service.estimation.history_reader import HistoryReader
+from service.jobs import queue as jobs
+from service.jobs.worker import JobRunner
 from tests.conftest import Database
 
 pytestmark = pytest.mark.storage
@@ -97,7 +100,7 @@ def _check_records(settings: Settings, spec: dict[str, Any] | None) -> dict[str,
             _close(row.result, want.to_dict(), product.sku)
             assert row.spec == model_spec.to_dict()
             restored = DemandFit.from_dict(row.result)
-            gates = fits.quality_gates(restored, None, settings)
+            gates = gates_module.quality_gates(restored, None, settings)
             assert row.gates == {
                 "passed": all(g.passed for g in gates),
                 "checks": [g.to_dict() for g in gates],
@@ -172,17 +175,17 @@ def test_bulk_written_records_equal_orm_written_ones(db: Database) -> None:
     engine = make_engine(db.settings)
     factory = make_session_factory(engine, writer=True)
     with session_scope(factory) as session:
-        first = fits.fit_now(session, sku="TEA-003", spec=None, settings=db.settings)
+        first = fits.fit_product(session, sku="TEA-003", spec=None, settings=db.settings)
         first_id, product_id = first.id, first.product_id
     with session_scope(factory) as session:
         orm_row = session.get(FitRow, first_id)
         assert orm_row is not None
         fit = DemandFit.from_dict(orm_row.result)
-        gates = fits.quality_gates(fit, None, db.settings)
-        session.execute(sa.update(FitRow).values(status=fits.SUPERSEDED))
-        fits.insert_rows(
+        gates = gates_module.quality_gates(fit, None, db.settings)
+        session.execute(sa.update(FitRow).values(status=gates_module.SUPERSEDED))
+        fit_store.insert_rows(
             session,
-            [fits.row_values(product_id=product_id, version=2, fit=fit, gates=gates, encoded=True)],
+            [fit_store.row_values(product_id=product_id, version=2, fit=fit, gates=gates)],
         )
     columns = [c.name for c in FitRow.__table__.columns if c.name not in ("id", "version")]
     with session_scope(make_session_factory(engine, writer=False)) as session:

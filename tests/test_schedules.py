@@ -10,9 +10,9 @@ import pytest
 import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
-from service import schedules
-from service.db import make_engine, make_session_factory
-from service.settings import Settings
+from service.core.db import make_engine, make_session_factory
+from service.core.settings import Settings
+from service.jobs import schedules
 from tests.conftest import Database, row_count
 
 pytestmark = pytest.mark.storage

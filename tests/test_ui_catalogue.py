@@ -24,12 +24,12 @@ import sqlalchemy as sa
 from playwright.sync_api import Browser, Page, sync_playwright
 from pydantic import SecretStr
 
-from service import migrate
-from service.app import create_app
+from service.access.view_session import COOKIE_NAME
 from service.cli import main as cli_main
-from service.db import make_engine
-from service.settings import Settings, get_settings
-from service.ui.session import COOKIE_NAME
+from service.core import migrate
+from service.core.app import create_app
+from service.core.db import make_engine
+from service.core.settings import Settings, get_settings
 from tests.conftest import make_key
 from tests.live_server import serve
 from tests.ui_support import (

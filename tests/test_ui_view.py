@@ -24,11 +24,11 @@ from itsdangerous import TimestampSigner, URLSafeTimedSerializer
 from pydantic import SecretStr
 
 import models
-from service.app import create_app
-from service.db import make_engine, make_session_factory, session_scope
-from service.settings import Settings
+from service.access.view_session import COOKIE_NAME, session_secret
+from service.core.app import create_app
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.settings import Settings
 from service.ui import chartbook, chartdata, records
-from service.ui.session import COOKIE_NAME, session_secret
 from tests.conftest import Database, make_key
 from tests.ui_support import (
     NO_HISTORY,

@@ -8,11 +8,11 @@ import xml.etree.ElementTree as ET
 from collections.abc import Sequence
 from pathlib import Path
 
-from service import demo, products
-from service import jobs as job_store
-from service.db import make_engine, make_session_factory, session_scope
-from service.settings import Settings
-from service.worker import JobRunner
+from service.catalogue import demo, products
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.settings import Settings
+from service.jobs import queue as job_store
+from service.jobs.worker import JobRunner
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
 NO_HISTORY = "TEA-900"  # a product created without any sales history

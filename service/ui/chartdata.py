@@ -19,17 +19,11 @@ from sqlalchemy.orm import Session
 from models import DemandFit, History, UnusableDataError, predict
 from models.design import build_design
 from models.forecast import expected_units
-from models.pricing import (
-    PriceConstraints,
-    PricingInputError,
-    WrongSignError,
-    optimal_price,
-)
-from service import histories
-from service.errors import InvalidInput
-from service.pricing import current_price, price_constraints
-from service.schemas import ConstraintsIn
-from service.tables import ProductRow
+from service.core.errors import InvalidInput, WrongSign
+from service.core.tables import ProductRow
+from service.estimation import histories
+from service.pricing.recommendations import price_product
+from service.pricing.schemas import ConstraintsIn, OptimalPriceRequest
 from service.ui.records import ProductInfo, Recommendation, ShownFit
 
 KINDS = ("demand", "money", "fit-over-time")
@@ -317,26 +311,13 @@ def _empty_money(product: ProductInfo, label: str | None, note: str) -> MoneyInp
 class PricingRules:
     """What to optimise and under which rules, taken from the latest recommendation."""
 
-    objective: str
-    constraints: PriceConstraints
-    scenario: dict[str, float]
-    unit_cost: float | None
-    current_price: float | None
-    draws: int
-    seed: int
+    request: OptimalPriceRequest
     source: str
 
 
 def _stored_rules(
     product: ProductInfo, fit: DemandFit, recommendation: Recommendation | None
 ) -> PricingRules:
-    # A transient row carries the product's defaults into the service's own helpers.
-    row = ProductRow(
-        sku=product.sku,
-        min_price=product.min_price,
-        max_price=product.max_price,
-        current_price=product.current_price,
-    )
     request: dict[str, Any] = recommendation.request if recommendation is not None else {}
     raw_rules = request.get("constraints") or {}
     if recommendation is not None and recommendation.from_family:
@@ -366,13 +347,17 @@ def _stored_rules(
     else:
         source = f"recommendation {recommendation.id}"
     return PricingRules(
-        objective=objective if objective in ("profit", "revenue") else "profit",
-        constraints=price_constraints(row, rules),
-        scenario=scenario,
-        unit_cost=float(unit_cost) if unit_cost is not None else product.unit_cost,
-        current_price=current_price(row, fit, given_price),
-        draws=int(request.get("uncertainty_draws") or 0),
-        seed=int(request.get("seed") or 0),
+        request=OptimalPriceRequest.model_construct(
+            objective=objective if objective in ("profit", "revenue") else "profit",
+            constraints=rules,
+            scenario=scenario,
+            unit_cost=float(unit_cost) if unit_cost is not None else None,
+            current_price=float(given_price) if given_price is not None else None,
+            uncertainty_draws=int(request.get("uncertainty_draws") or 0),
+            seed=int(request.get("seed") or 0),
+            curve_points=CURVE_POINTS,
+            force=False,
+        ),
         source=source,
     )
 
@@ -392,39 +377,29 @@ def money_inputs(subject: Subject) -> MoneyInputs:
         )
     fit = shown.fit
     same_fit = recommendation is not None and recommendation.fit_id == shown.id
+    rules = _stored_rules(product, fit, recommendation)
     try:
-        rules = _stored_rules(product, fit, recommendation)
-    except InvalidInput as exc:
-        return _empty_money(product, label, f"The stored rules are not usable: {exc.detail}")
-    try:
-        result = optimal_price(
-            fit,
-            objective=rules.objective,
-            unit_cost=rules.unit_cost,
-            current_price=rules.current_price,
-            constraints=rules.constraints,
-            scenario=rules.scenario,
-            uncertainty_draws=rules.draws,
-            seed=rules.seed,
-            curve_points=CURVE_POINTS,
-        )
-    except WrongSignError as exc:
+        result = price_product(fit, product, rules.request)
+    except WrongSign as exc:
         return _empty_money(product, label, f"No price is recommended: {exc.reason}")
-    except PricingInputError as exc:
-        return _empty_money(product, label, f"No price can be recommended: {exc}")
+    except InvalidInput as exc:
+        return _empty_money(product, label, f"No price can be recommended: {exc.detail}")
+    objective, unit_cost = rules.request.objective, rules.request.unit_cost
+    if unit_cost is None:
+        unit_cost = product.unit_cost
     curve = result.curve or ()
     price = np.array([p.price for p in curve])
     revenue = np.array([p.revenue for p in curve])
     profit = (
         np.array([p.profit for p in curve], dtype=np.float64)
-        if rules.unit_cost is not None and all(p.profit is not None for p in curve)
+        if unit_cost is not None and all(p.profit is not None for p in curve)
         else None
     )
-    value = result.recommended.profit if rules.objective == "profit" else result.recommended.revenue
+    value = result.recommended.profit if objective == "profit" else result.recommended.revenue
     current_value = None
     if result.current is not None:
         current_value = (
-            result.current.profit if rules.objective == "profit" else result.current.revenue
+            result.current.profit if objective == "profit" else result.current.revenue
         )
     uncertainty = result.uncertainty
     stored = _recommended_price(recommendation)
@@ -439,7 +414,7 @@ def money_inputs(subject: Subject) -> MoneyInputs:
     return MoneyInputs(
         product=product,
         fit_label=label,
-        objective=rules.objective,
+        objective=objective,
         price=price,
         revenue=revenue,
         profit=profit,

@@ -14,9 +14,10 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from models import DemandFit
-from service import products
-from service.fits import ACTIVE, fit_cache
-from service.tables import FitRow, ProductRow, RecommendationRow, as_utc
+from service.catalogue import products
+from service.core.tables import FitRow, ProductRow, RecommendationRow, as_utc
+from service.estimation.fit_cache import fit_cache
+from service.estimation.gates import ACTIVE
 
 
 @dataclass(frozen=True)

@@ -17,10 +17,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import IO
 
-from service.db import make_engine, make_session_factory, session_scope
-from service.jobs import Progress
-from service.progress import JobProgressDisplay
-from service.settings import Settings
+from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.settings import Settings
+from service.jobs.progress import JobProgressDisplay
+from service.jobs.queue import Progress
 from service.ui import chartbook, pages, records
 from service.ui.links import StaticLinks
 from service.ui.templating import STATIC_DIR, render

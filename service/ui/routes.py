@@ -10,18 +10,20 @@ from fastapi import APIRouter, Header, Path, Query, Request, Response
 from fastapi.responses import HTMLResponse, RedirectResponse
 from sqlalchemy.orm import Session, sessionmaker
 from starlette.concurrency import run_in_threadpool
+from starlette.staticfiles import StaticFiles
 
-from service.api.docs import problems
-from service.api.products import SkuPath
-from service.db import session_scope
-from service.deps import READ, ReadSession
-from service.errors import NotFound
-from service.settings import Settings
-from service.ui import chartbook, pages, records, session
+from service.access import view_session as session
+from service.access.view_session import COOKIE_NAME, Viewer
+from service.catalogue.product_routes import SkuPath
+from service.core.db import session_scope
+from service.core.deps import READ, ReadSession
+from service.core.errors import NotFound
+from service.core.responses import problems
+from service.core.settings import Settings
+from service.ui import chartbook, pages, records
 from service.ui.cache import ChartKey
 from service.ui.links import UI_PREFIX, LiveLinks
-from service.ui.session import COOKIE_NAME, Viewer
-from service.ui.templating import render
+from service.ui.templating import STATIC_DIR, render
 
 ChartKind = Literal["demand", "money", "fit-over-time"]
 SVG = "image/svg+xml"
@@ -308,3 +310,8 @@ def sign_out(request: Request) -> RedirectResponse:
 router = APIRouter()
 router.include_router(api)
 router.include_router(ui)
+
+
+def static_files() -> StaticFiles:
+    """The pages' stylesheet and script, served at :data:`STATIC_URL`."""
+    return StaticFiles(directory=STATIC_DIR)

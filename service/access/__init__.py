@@ -1,0 +1,1 @@
+"""Access: API keys, authentication and the analyst view's sign-in session."""

@@ -1,0 +1,1 @@
+"""The catalogue: products, their sales observations, CSV imports and the demo shop."""

@@ -1,0 +1,67 @@
+"""A product's sales history: batch upsert and ranged reads."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Query
+
+from service.catalogue import ingest, observations, products
+from service.catalogue.product_routes import SkuPath
+from service.catalogue.schemas import (
+    ObservationBatch,
+    ObservationOut,
+    UpsertCounts,
+    observation_out,
+)
+from service.core.deps import READ, WRITE, ReadSession, WriteSession
+from service.core.pagination import cursor_date, decode_cursor, encode_cursor
+from service.core.responses import problems
+from service.core.schemas import DateText, Page
+
+router = APIRouter(prefix="/v1/products/{sku}/observations", tags=["observations"])
+
+
+@router.post(
+    "",
+    response_model=UpsertCounts,
+    dependencies=[WRITE],
+    operation_id="upsert_observations",
+    summary="Insert or replace periods of a product's history",
+    responses=problems(404, 413, 422),
+)
+def upsert_observations(
+    sku: SkuPath, body: ObservationBatch, session: WriteSession
+) -> UpsertCounts:
+    """Keyed on period: a period sent again replaces the stored one. All rows or none."""
+    product = products.get_or_raise(session, sku=sku)
+    outcome = ingest.upsert_batch(session, product_id=product.id, observations=body.observations)
+    return UpsertCounts(rows=outcome.rows, inserted=outcome.inserted, updated=outcome.updated)
+
+
+@router.get(
+    "",
+    response_model=Page[ObservationOut],
+    dependencies=[READ],
+    operation_id="list_observations",
+    summary="Read a product's history, oldest first",
+    responses=problems(404, 422),
+)
+def list_observations(
+    sku: SkuPath,
+    session: ReadSession,
+    start: Annotated[DateText | None, Query(description="First period to include")] = None,
+    end: Annotated[DateText | None, Query(description="Last period to include")] = None,
+    limit: Annotated[int, Query(ge=1, le=5000)] = 1000,
+    cursor: Annotated[
+        str | None, Query(description="From `next_cursor` of the previous page")
+    ] = None,
+) -> Page[ObservationOut]:
+    product = products.get_or_raise(session, sku=sku)
+    position = decode_cursor(cursor)
+    after = cursor_date(position, "after")
+    rows, more = observations.list_range(
+        session, product_id=product.id, start=start, end=end, limit=limit, after=after
+    )
+    next_cursor = encode_cursor({"after": rows[-1].period.isoformat()}) if more and rows else None
+    return Page[ObservationOut](items=[observation_out(r) for r in rows], next_cursor=next_cursor)

@@ -1,0 +1,165 @@
+"""Engine and session construction for SQLite (WAL) and PostgreSQL (psycopg 3)."""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+from sqlalchemy import Connection, Engine, create_engine, event
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.core import json_text
+from service.core.settings import Settings
+
+
+def make_engine(settings: Settings) -> Engine:
+    """Build the engine for the configured database, with per-backend connection setup."""
+    url = settings.database_url
+    if settings.is_sqlite:
+        _ensure_sqlite_folder(url)
+        engine = create_engine(
+            url,
+            connect_args={
+                "timeout": settings.sqlite_busy_timeout_ms / 1000,
+                "check_same_thread": False,
+            },
+            pool_size=settings.database_pool_size,
+            json_serializer=json_text.dumps,
+        )
+        queue = _WriterQueue(settings.sqlite_busy_timeout_ms / 1000)
+        event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
+        event.listen(engine, "begin", _sqlite_on_begin(queue))
+        for name in ("commit", "rollback"):
+            event.listen(engine, name, queue.leave)
+        event.listen(engine.pool, "reset", queue.on_reset)
+        event.listen(engine.pool, "checkin", _sqlite_on_checkin(queue))
+        return engine
+    connect_args: dict[str, Any] = {}
+    if settings.database_schema:
+        connect_args["options"] = f"-csearch_path={settings.database_schema}"
+    return create_engine(
+        url,
+        connect_args=connect_args,
+        pool_pre_ping=True,
+        pool_size=settings.database_pool_size,
+        json_serializer=json_text.dumps,
+    )
+
+
+def _ensure_sqlite_folder(url: str) -> None:
+    path = url.split("///", 1)[-1]
+    if path and path != ":memory:" and not path.startswith("file:"):
+        Path(path).parent.mkdir(parents=True, exist_ok=True)
+
+
+def _sqlite_on_connect(busy_timeout_ms: int) -> Any:
+    def on_connect(dbapi_conn: Any, _record: Any) -> None:
+        # Let SQLAlchemy, not pysqlite, issue BEGIN, so BEGIN IMMEDIATE below takes effect.
+        dbapi_conn.isolation_level = None
+        cursor = dbapi_conn.cursor()
+        cursor.execute("PRAGMA journal_mode=WAL")
+        cursor.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
+        cursor.execute("PRAGMA foreign_keys=ON")
+        cursor.execute("PRAGMA synchronous=NORMAL")
+        cursor.close()
+
+    return on_connect
+
+
+_FOREIGN_KEYS_OFF = "marginal_foreign_keys_off"
+
+
+class _WriterQueue:
+    """Makes this process's SQLite writers take turns on a lock before BEGIN IMMEDIATE.
+
+    SQLite's busy handler polls with sleeps of up to 100 ms, so writers of one process
+    that collide wait far longer than the transaction they wait for. Queueing on a
+    thread lock first hands the database over as soon as the writer before commits.
+    The database's own lock still decides; this only orders the waiting, and after the
+    busy timeout a writer goes ahead without its turn (SQLite then times it out as
+    before), so a lost release can slow writers down but never wedge them.
+    """
+
+    _HELD = "marginal_writer_turn"
+
+    def __init__(self, timeout_s: float) -> None:
+        self._lock = threading.Lock()
+        self._timeout_s = timeout_s
+
+    def enter(self, conn: Connection) -> None:
+        if self._lock.acquire(timeout=self._timeout_s):
+            conn.info[self._HELD] = True
+
+    def leave(self, conn: Connection) -> None:
+        self._release(conn.info)
+
+    def on_reset(self, dbapi_connection: Any, connection_record: Any, reset_state: Any) -> None:
+        # (SQLAlchemy tells this event's signature by its parameter names.)
+        self._release(connection_record.info)
+
+    def release_record(self, connection_record: Any) -> None:
+        self._release(connection_record.info)
+
+    def _release(self, info: dict[Any, Any]) -> None:
+        if info.pop(self._HELD, False):
+            self._lock.release()
+
+
+def _sqlite_on_begin(queue: _WriterQueue) -> Any:
+    def on_begin(conn: Connection) -> None:
+        # Writers take the write lock at BEGIN: a transaction that reads and then writes
+        # cannot fail on lock upgrade, and busy_timeout makes concurrent writers wait
+        # instead of failing with "database is locked". Readers stay deferred (WAL).
+        options = conn.get_execution_options()
+        if options.get("bulk_load"):
+            # Bulk loads resolve every product id inside their own write-locked
+            # transaction, so per-row foreign-key checks (a third of an import's write
+            # time) can prove nothing; checkin turns them back on.
+            conn.exec_driver_sql("PRAGMA foreign_keys=OFF")
+            conn.info[_FOREIGN_KEYS_OFF] = True
+        if options.get("writer"):
+            queue.enter(conn)
+            try:
+                conn.exec_driver_sql("BEGIN IMMEDIATE")
+            except BaseException:
+                queue.leave(conn)
+                raise
+        else:
+            conn.exec_driver_sql("BEGIN")
+
+    return on_begin
+
+
+def _sqlite_on_checkin(queue: _WriterQueue) -> Any:
+    def on_checkin(dbapi_conn: Any, record: Any) -> None:
+        queue.release_record(record)
+        if record.info.pop(_FOREIGN_KEYS_OFF, False):
+            dbapi_conn.execute("PRAGMA foreign_keys=ON")
+
+    return on_checkin
+
+
+def make_session_factory(
+    engine: Engine, *, writer: bool, bulk_load: bool = False
+) -> sessionmaker[Session]:
+    """Sessions for reading, for writing (which lock SQLite for writing at BEGIN), or
+    for bulk loads of observations whose product ids the load itself resolves."""
+    bind = engine.execution_options(writer=True, bulk_load=bulk_load) if writer else engine
+    return sessionmaker(bind=bind, expire_on_commit=False)
+
+
+@contextmanager
+def session_scope(factory: sessionmaker[Session]) -> Iterator[Session]:
+    """One unit of work: commit on success, roll back on any error."""
+    session = factory()
+    try:
+        yield session
+        session.commit()
+    except BaseException:
+        session.rollback()
+        raise
+    finally:
+        session.close()

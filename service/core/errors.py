@@ -1,0 +1,219 @@
+"""Domain errors: what went wrong, in the terms of the service, with no transport in sight.
+
+Use cases raise these; :mod:`service.core.problems` alone decides what a client of the
+HTTP API sees, and the jobs record their ``detail`` as a product's failure reason.
+The numerical library's own errors become domain errors in :func:`from_library`, the one
+place that knows them.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from models import (
+    InfeasibleConstraintsError,
+    InsufficientDataError,
+    InvalidConstraintsError,
+    MissingUnitCostError,
+    PricingInputError,
+    SpecError,
+    UnusableDataError,
+    WrongSignError,
+)
+
+
+@dataclass
+class ErrorItem:
+    """One reason a request was refused, pointing at a field or a CSV line and column."""
+
+    message: str
+    field: str | None = None
+    line: int | None = None
+    column: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {k: v for k, v in self.__dict__.items() if v is not None}
+
+
+@dataclass
+class ServiceError(Exception):
+    """Base of every error a caller may see: a sentence, and where the trouble is."""
+
+    detail: str
+    errors: list[ErrorItem] = field(default_factory=list)
+
+    def __str__(self) -> str:
+        return self.detail
+
+
+class InvalidInput(ServiceError):
+    """The input cannot be used as given."""
+
+
+class NotFound(ServiceError):
+    """The thing asked for does not exist."""
+
+
+class ProductNotFound(NotFound):
+    """No product has the given sku."""
+
+
+class NoActiveFit(NotFound):
+    """The product has no fit that pricing may use."""
+
+
+class Conflict(ServiceError):
+    """The request conflicts with the current state of the records."""
+
+
+@dataclass
+class WrongSign(Conflict):
+    """The fit says demand rises with price; pricing refuses unless forced."""
+
+    reason: str = ""
+
+
+class PayloadTooLarge(ServiceError):
+    """The request body is over the configured limit."""
+
+
+class UnsupportedMediaType(ServiceError):
+    """The request body is not of a type the operation reads."""
+
+
+class Unauthenticated(ServiceError):
+    """No credentials, or unknown or revoked ones."""
+
+
+class Forbidden(ServiceError):
+    """The credentials lack the scope the operation needs."""
+
+
+class Unavailable(ServiceError):
+    """The database cannot be reached right now; retrying later may work."""
+
+
+# What the library raises when the numbers themselves defeat it (not a bad request shape).
+NUMERIC_FAILURES: tuple[type[Exception], ...] = (
+    FloatingPointError,
+    ZeroDivisionError,
+    OverflowError,
+    np.linalg.LinAlgError,
+)
+
+
+@contextmanager
+def strict_floats() -> Iterator[None]:
+    """Raise FloatingPointError where numpy would produce inf or NaN (numpy's state is
+    per thread, so concurrent requests do not affect each other). Underflow stays
+    silent: a tiny value becoming zero is harmless."""
+    with np.errstate(over="raise", divide="raise", invalid="raise", under="ignore"):
+        yield
+
+
+def numeric_reason(exc: BaseException) -> str:
+    """A short, client-safe description of a numerical failure."""
+    if isinstance(exc, np.linalg.LinAlgError):
+        return f"the equations are degenerate ({exc})"
+    if isinstance(exc, ZeroDivisionError) or "divide by zero" in str(exc):
+        return "a statistic divides by zero (values that are all zero or never vary?)"
+    return f"the values are too large or too small for double precision ({exc})"
+
+
+def unusable(what: str, exc: BaseException, *, field: str = "body") -> InvalidInput:
+    """A numerical failure while computing ``what``, as invalid input with a way out."""
+    message = f"{what}: {numeric_reason(exc)}"
+    return InvalidInput(
+        message + "; rescale the values (e.g. prices in thousands) or choose another form",
+        errors=[ErrorItem(field=field, message=message)],
+    )
+
+
+LIBRARY_ERRORS: tuple[type[Exception], ...] = (
+    SpecError,
+    InsufficientDataError,
+    UnusableDataError,
+    PricingInputError,
+    WrongSignError,
+    *NUMERIC_FAILURES,
+)
+"""The numerical library's errors that :func:`from_library` turns into domain errors."""
+
+
+def from_library(
+    exc: Exception, *, subject: str = "", spec_field: str = "spec", sku: str | None = None
+) -> ServiceError:
+    """The numerical library's error ``exc`` as a domain error.
+
+    ``subject`` says what was being computed ("no price can be recommended from this
+    fit"); ``spec_field`` is where a model specification came from; ``sku`` the product.
+    """
+    if isinstance(exc, SpecError):
+        return InvalidInput(
+            "the model specification is invalid",
+            errors=[
+                ErrorItem(
+                    field=f"{spec_field}.{name}" if name != "spec" else spec_field,
+                    message=message,
+                )
+                for name, message in exc.problems
+            ],
+        )
+    if isinstance(exc, InsufficientDataError):
+        return InvalidInput(
+            f"not enough data to fit {exc.sku!r}: {exc.n_obs} usable observations, the model "
+            f"needs at least {exc.n_required} ({exc.n_missing} more)",
+            errors=[ErrorItem(field="observations", message=str(exc))],
+        )
+    if isinstance(exc, UnusableDataError):
+        return InvalidInput(
+            f"the data of {sku!r} cannot support this model: {exc}"
+            if sku
+            else f"the data cannot support this model: {exc}",
+            errors=[ErrorItem(field=spec_field, message=str(exc))],
+        )
+    if isinstance(exc, WrongSignError):
+        return WrongSign(
+            f'{exc.reason} Refusing to optimise; send "force": true to optimise anyway.',
+            reason=exc.reason,
+        )
+    if isinstance(exc, InfeasibleConstraintsError):
+        return InvalidInput(
+            f"no price satisfies every constraint: {exc}",
+            errors=[
+                ErrorItem(field=f"constraints.{name}", message="conflicts with the others")
+                for name in exc.constraints
+            ],
+        )
+    if isinstance(exc, InvalidConstraintsError):
+        return InvalidInput(
+            "the constraints are invalid",
+            errors=[
+                ErrorItem(field=f"constraints.{name}", message=message)
+                for name, message in exc.problems
+            ],
+        )
+    if isinstance(exc, MissingUnitCostError):
+        return InvalidInput(str(exc), errors=[ErrorItem(field="unit_cost", message=str(exc))])
+    if isinstance(exc, PricingInputError):
+        return InvalidInput(str(exc), errors=[ErrorItem(field="body", message=str(exc))])
+    if isinstance(exc, NUMERIC_FAILURES):
+        return unusable(subject or "the computation failed", exc, field=spec_field)
+    raise TypeError(f"not an error of the numerical library: {exc!r}") from exc
+
+
+@contextmanager
+def library_errors(
+    *, subject: str = "", spec_field: str = "spec", sku: str | None = None
+) -> Iterator[None]:
+    """Run library code with floating-point traps on; its errors leave as domain errors."""
+    try:
+        with strict_floats():
+            yield
+    except LIBRARY_ERRORS as exc:
+        raise from_library(exc, subject=subject, spec_field=spec_field, sku=sku) from None

@@ -1,0 +1,46 @@
+"""Liveness and readiness probes (no API key needed)."""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Request
+from fastapi.responses import JSONResponse
+from sqlalchemy.exc import SQLAlchemyError
+
+from service.core import migrate
+from service.core.schemas import Health, Readiness
+
+router = APIRouter(tags=["health"])
+
+
+@router.get("/healthz", response_model=Health, operation_id="health", summary="Liveness")
+def health() -> Health:
+    return Health(status="ok")
+
+
+@router.get(
+    "/readyz",
+    response_model=Readiness,
+    operation_id="readiness",
+    summary="Readiness: database reachable and schema at the latest migration",
+    responses={503: {"model": Readiness, "description": "Not ready"}},
+)
+def readiness(request: Request) -> JSONResponse:
+    settings = request.app.state.settings
+    expected = migrate.head_revision(settings)
+    try:
+        current = migrate.current_revision(request.app.state.engine)
+        reachable = True
+    except SQLAlchemyError:
+        current, reachable = None, False
+    ready = reachable and current == expected
+    body = Readiness(
+        status="ready" if ready else "not ready",
+        database="reachable" if reachable else "unreachable",
+        schema_revision=current,
+        expected_revision=expected,
+    )
+    return JSONResponse(
+        body.model_dump(),
+        status_code=200 if ready else 503,
+        headers=None if ready else {"Retry-After": "5"},
+    )

@@ -1,0 +1,39 @@
+"""Schema migrations through Alembic: the only way the schema is created or changed."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from alembic import command
+from alembic.config import Config
+from alembic.runtime.migration import MigrationContext
+from alembic.script import ScriptDirectory
+from sqlalchemy import Engine
+
+from service.core.settings import Settings
+
+MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
+
+
+def alembic_config(settings: Settings) -> Config:
+    config = Config()
+    config.set_main_option("script_location", str(MIGRATIONS_DIR))
+    config.attributes["settings"] = settings
+    return config
+
+
+def upgrade(settings: Settings, revision: str = "head") -> None:
+    command.upgrade(alembic_config(settings), revision)
+
+
+def downgrade(settings: Settings, revision: str = "base") -> None:
+    command.downgrade(alembic_config(settings), revision)
+
+
+def head_revision(settings: Settings) -> str | None:
+    return ScriptDirectory.from_config(alembic_config(settings)).get_current_head()
+
+
+def current_revision(engine: Engine) -> str | None:
+    with engine.connect() as conn:
+        return MigrationContext.configure(conn).get_current_revision()

@@ -1,0 +1,202 @@
+"""Database tables (SQLAlchemy 2.0 typed declarative). The schema itself comes from migrations."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+from sqlalchemy import (
+    JSON,
+    Boolean,
+    Date,
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    MetaData,
+    String,
+    UniqueConstraint,
+    text,
+)
+from sqlalchemy.dialects.postgresql import JSONB
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+NAMING_CONVENTION = {
+    "ix": "ix_%(column_0_label)s",
+    "uq": "uq_%(table_name)s_%(column_0_name)s",
+    "ck": "ck_%(table_name)s_%(constraint_name)s",
+    "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+    "pk": "pk_%(table_name)s",
+}
+
+# JSON documents: JSONB on PostgreSQL, JSON text elsewhere.
+JsonDoc = JSON().with_variant(JSONB(), "postgresql")
+
+
+def utcnow() -> dt.datetime:
+    return dt.datetime.now(dt.UTC)
+
+
+def as_utc(value: dt.datetime) -> dt.datetime:
+    """SQLite hands back naive datetimes; every stored time is UTC."""
+    return value if value.tzinfo else value.replace(tzinfo=dt.UTC)
+
+
+def as_utc_or_none(value: dt.datetime | None) -> dt.datetime | None:
+    return None if value is None else as_utc(value)
+
+
+class Base(DeclarativeBase):
+    metadata = MetaData(naming_convention=NAMING_CONVENTION)
+
+
+class ProductRow(Base):
+    __tablename__ = "products"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    sku: Mapped[str] = mapped_column(String(64), unique=True)
+    name: Mapped[str] = mapped_column(String(200))
+    family: Mapped[str | None] = mapped_column(String(64), index=True)
+    currency: Mapped[str] = mapped_column(String(3))
+    unit_cost: Mapped[float | None] = mapped_column(Float)
+    current_price: Mapped[float | None] = mapped_column(Float)
+    min_price: Mapped[float | None] = mapped_column(Float)
+    max_price: Mapped[float | None] = mapped_column(Float)
+    default_spec: Mapped[dict[str, Any] | None] = mapped_column(JsonDoc)
+    # When the product's history last changed: an incremental refit skips products
+    # whose latest fit is newer.
+    history_changed_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    updated_at: Mapped[dt.datetime] = mapped_column(
+        DateTime(timezone=True), default=utcnow, onupdate=utcnow
+    )
+
+
+class ObservationRow(Base):
+    __tablename__ = "observations"
+    __table_args__ = (UniqueConstraint("product_id", "period"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"))
+    period: Mapped[dt.date] = mapped_column(Date)
+    price: Mapped[float] = mapped_column(Float)
+    units: Mapped[float] = mapped_column(Float)
+    unit_cost: Mapped[float | None] = mapped_column(Float)
+    in_stock: Mapped[bool | None] = mapped_column(Boolean)
+    # Named numeric covariates as one JSON object: {"rival_price": 1.02, "promo": 0}.
+    covariates: Mapped[dict[str, float] | None] = mapped_column(JsonDoc)
+
+
+class ApiKeyRow(Base):
+    __tablename__ = "api_keys"
+
+    id: Mapped[str] = mapped_column(String(16), primary_key=True)
+    name: Mapped[str] = mapped_column(String(100))
+    scopes: Mapped[list[str]] = mapped_column(JsonDoc)
+    secret_hash: Mapped[str] = mapped_column(String(64))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    last_used_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    revoked_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class FitRow(Base):
+    __tablename__ = "fits"
+    __table_args__ = (
+        UniqueConstraint("product_id", "version"),
+        # At most one active fit per product, whatever runs concurrently.
+        Index(
+            "uq_fits_one_active",
+            "product_id",
+            unique=True,
+            sqlite_where=text("status = 'active'"),
+            postgresql_where=text("status = 'active'"),
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    product_id: Mapped[int] = mapped_column(
+        ForeignKey("products.id", ondelete="CASCADE"), index=True
+    )
+    version: Mapped[int] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(16))
+    form: Mapped[str] = mapped_column(String(16))
+    spec: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    result: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    gates: Mapped[dict[str, Any] | None] = mapped_column(JsonDoc)
+    n_obs: Mapped[int] = mapped_column(Integer)
+    # Copied out of `result` so gates and lists need not parse the whole record.
+    holdout_wape: Mapped[float | None] = mapped_column(Float)
+    own_price_estimate: Mapped[float | None] = mapped_column(Float)
+    job_id: Mapped[int | None] = mapped_column(ForeignKey("jobs.id", ondelete="SET NULL"))
+    window_start: Mapped[dt.date | None] = mapped_column(Date)
+    window_end: Mapped[dt.date | None] = mapped_column(Date)
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class RecommendationRow(Base):
+    __tablename__ = "recommendations"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    product_id: Mapped[int] = mapped_column(
+        ForeignKey("products.id", ondelete="CASCADE"), index=True
+    )
+    fit_id: Mapped[int | None] = mapped_column(ForeignKey("fits.id", ondelete="SET NULL"))
+    objective: Mapped[str] = mapped_column(String(16))
+    request: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    result: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class JobRow(Base):
+    __tablename__ = "jobs"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    kind: Mapped[str] = mapped_column(String(16))
+    scope: Mapped[Any] = mapped_column(JsonDoc)
+    options: Mapped[dict[str, Any] | None] = mapped_column(JsonDoc)
+    status: Mapped[str] = mapped_column(String(16))
+    done: Mapped[int] = mapped_column(Integer, default=0)
+    total: Mapped[int] = mapped_column(Integer, default=0)
+    counts: Mapped[dict[str, int] | None] = mapped_column(JsonDoc)
+    errors: Mapped[list[dict[str, Any]] | None] = mapped_column(JsonDoc)
+    message: Mapped[str | None] = mapped_column(String(500))
+    claimed_by: Mapped[str | None] = mapped_column(String(120))
+    schedule_name: Mapped[str | None] = mapped_column(String(64))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    started_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    heartbeat_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    finished_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+
+
+class ScheduleRunRow(Base):
+    """One row per (schedule, slot): the unique key makes each slot run exactly once,
+    however many schedulers race for it."""
+
+    __tablename__ = "schedule_runs"
+    __table_args__ = (UniqueConstraint("schedule_name", "slot"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    schedule_name: Mapped[str] = mapped_column(
+        ForeignKey("schedules.name", ondelete="CASCADE"), index=True
+    )
+    slot: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True))
+    job_id: Mapped[int | None] = mapped_column(ForeignKey("jobs.id", ondelete="SET NULL"))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class ScheduleRow(Base):
+    __tablename__ = "schedules"
+
+    name: Mapped[str] = mapped_column(String(64), primary_key=True)
+    cron: Mapped[str] = mapped_column(String(100))
+    timezone: Mapped[str] = mapped_column(String(64))
+    job: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    enabled: Mapped[bool] = mapped_column(Boolean, default=True)
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    updated_at: Mapped[dt.datetime] = mapped_column(
+        DateTime(timezone=True), default=utcnow, onupdate=utcnow
+    )
+
+
+ALL_TABLES = [t.name for t in Base.metadata.sorted_tables]

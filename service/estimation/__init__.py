@@ -1,0 +1,1 @@
+"""Demand estimation: histories, fits and their quality gates, and refit jobs."""

@@ -1,0 +1,187 @@
+"""Fit records of a product: the active fit, versions, fitting a product now, and
+pooling a product's estimate with its family's."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from sqlalchemy import and_, bindparam, select
+from sqlalchemy.orm import Session
+
+from models import DemandFit, ModelSpec, fit_demand, fit_many, pool_family
+from service.catalogue import products
+from service.core import metrics
+from service.core.errors import NoActiveFit, NotFound, library_errors
+from service.core.settings import Settings
+from service.core.tables import FitRow, ProductRow
+from service.estimation import fit_store, histories
+from service.estimation.fit_cache import fit_cache
+from service.estimation.gates import ACTIVE
+
+
+def active_row(session: Session, *, product_id: int) -> FitRow | None:
+    return session.scalar(
+        select(FitRow).where(FitRow.product_id == product_id, FitRow.status == ACTIVE)
+    )
+
+
+def active_or_raise(session: Session, *, product: ProductRow) -> FitRow:
+    row = active_row(session, product_id=product.id)
+    if row is None:
+        raise _no_active_fit(product)
+    return row
+
+
+@dataclass(frozen=True)
+class PricingTerms:
+    """What pricing needs of a product row (read without building an ORM object)."""
+
+    id: int
+    sku: str
+    unit_cost: float | None
+    current_price: float | None
+    min_price: float | None
+    max_price: float | None
+
+
+_PRODUCT_WITH_ACTIVE_FIT = (
+    select(
+        ProductRow.id,
+        ProductRow.sku,
+        ProductRow.unit_cost,
+        ProductRow.current_price,
+        ProductRow.min_price,
+        ProductRow.max_price,
+        FitRow.id.label("fit_id"),
+        FitRow.created_at.label("fit_created_at"),
+    )
+    .outerjoin(FitRow, and_(FitRow.product_id == ProductRow.id, FitRow.status == ACTIVE))
+    .where(ProductRow.sku == bindparam("sku"))
+)
+
+
+def product_with_active_fit(session: Session, sku: str) -> tuple[PricingTerms, int, DemandFit]:
+    """A product's pricing terms, its active fit's id and the fit, read with one query
+    (the hot path of every recommendation)."""
+    found = session.connection().execute(_PRODUCT_WITH_ACTIVE_FIT, {"sku": sku}).first()
+    if found is None:
+        raise NotFound(f"no product with sku {sku!r}")
+    product = PricingTerms(
+        id=found.id,
+        sku=found.sku,
+        unit_cost=found.unit_cost,
+        current_price=found.current_price,
+        min_price=found.min_price,
+        max_price=found.max_price,
+    )
+    if found.fit_id is None:
+        raise _no_active_fit(product)
+    return product, found.fit_id, fit_cache.get(session, found.fit_id, found.fit_created_at)
+
+
+def _no_active_fit(product: ProductRow | PricingTerms) -> NoActiveFit:
+    return NoActiveFit(
+        f"product {product.sku!r} has no active fit; fit one with POST "
+        f"/v1/products/{product.sku}/fits"
+    )
+
+
+def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
+    """The active fit's id and the fit itself (restored once, then cached)."""
+    found = session.execute(
+        select(FitRow.id, FitRow.created_at).where(
+            FitRow.product_id == product.id, FitRow.status == ACTIVE
+        )
+    ).first()
+    if found is None:
+        raise _no_active_fit(product)
+    return found.id, fit_cache.get(session, found.id, found.created_at)
+
+
+def get_or_raise(session: Session, *, product: ProductRow, fit_id: int) -> FitRow:
+    row = session.get(FitRow, fit_id)
+    if row is None or row.product_id != product.id:
+        raise NotFound(f"product {product.sku!r} has no fit {fit_id}")
+    return row
+
+
+def list_page(
+    session: Session, *, product_id: int, limit: int, before_version: int | None
+) -> tuple[list[FitRow], bool]:
+    """Newest first."""
+    query = (
+        select(FitRow)
+        .where(FitRow.product_id == product_id)
+        .order_by(FitRow.version.desc())
+        .limit(limit + 1)
+    )
+    if before_version is not None:
+        query = query.where(FitRow.version < before_version)
+    rows = list(session.scalars(query))
+    return rows[:limit], len(rows) > limit
+
+
+def restore(row: FitRow) -> DemandFit:
+    return DemandFit.from_dict(row.result)
+
+
+def parse_spec(raw: dict[str, Any] | None, *, field_prefix: str = "spec") -> ModelSpec:
+    """A model specification from its JSON form; problems name their field."""
+    with library_errors(spec_field=field_prefix):
+        return ModelSpec.from_dict(raw or {})
+
+
+def fit_product(
+    session: Session, *, sku: str, spec: dict[str, Any] | None, settings: Settings
+) -> FitRow:
+    """Fit one product with the given spec (or its default), record the fit and
+    activate it if it passes the gates: the use case behind ``POST .../fits``."""
+    product = products.get_or_raise(session, sku=sku)
+    model_spec = parse_spec(spec if spec is not None else product.default_spec)
+    history = histories.load_history(session, product=product, cross_skus=model_spec.cross_prices)
+    cannot = f"the history of {sku!r} cannot be fitted in the {model_spec.form} form"
+    with library_errors(subject=cannot, sku=sku):
+        fit = fit_demand(history, model_spec)
+        if model_spec.pooling == "family" and product.family:
+            fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
+    (outcome,) = fit_store.activate(
+        session, targets=[fit_store.FitTarget(product.id, sku)], results=[fit], settings=settings
+    )
+    metrics.record_fit(outcome.outcome)
+    row = session.scalar(
+        select(FitRow).where(FitRow.product_id == product.id, FitRow.version == outcome.version)
+    )
+    assert row is not None, "a fit record just written"
+    return row
+
+
+def pool_with_family(
+    session: Session, *, product: ProductRow, fit: DemandFit, spec: ModelSpec
+) -> DemandFit:
+    """Shrink the fit's own-price elasticity toward its family's.
+
+    Siblings contribute their active fits; a sibling without one is fitted for the
+    occasion with the same spec minus cross-price terms (those fits are not stored).
+    """
+    siblings = list(
+        session.scalars(
+            select(ProductRow).where(
+                ProductRow.family == product.family, ProductRow.id != product.id
+            )
+        )
+    )
+    members: list[DemandFit] = [fit]
+    to_fit = []
+    for sibling in siblings:
+        active = active_row(session, product_id=sibling.id)
+        if active is not None:
+            members.append(restore(active))
+        else:
+            to_fit.append(histories.load_history(session, product=sibling))
+    if to_fit:
+        plain = ModelSpec.from_dict({**spec.to_dict(), "cross_prices": [], "pooling": "none"})
+        members += [f for f in fit_many(to_fit, plain) if isinstance(f, DemandFit)]
+    family = product.family or ""
+    pooled = pool_family(members, families={m.sku: family for m in members})
+    return pooled[0]

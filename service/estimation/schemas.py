@@ -1,0 +1,232 @@
+"""Request and response bodies of fits, elasticities and predictions."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Annotated, Any, Literal
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+)
+
+from service.core.schemas import CovariateName, FiniteNumber, Money, PositiveMoney, Sku, Strict
+from service.core.tables import (
+    FitRow,
+    as_utc,
+)
+
+
+class FitRequest(Strict):
+    spec: dict[str, Any] | None = Field(
+        default=None,
+        description="Model specification (form, covariates, log_covariates, cross_prices, "
+        "seasonality, trend, standard_errors, instruments, window_periods, "
+        "exclude_stockouts, pooling); omit to use the product's default_spec",
+        examples=[
+            {
+                "form": "log-log",
+                "covariates": ["rival_price", "promo"],
+                "log_covariates": ["rival_price"],
+            }
+        ],
+    )
+
+
+class CoefficientOut(BaseModel):
+    term: str
+    estimate: float | None
+    std_error: float | None
+    t_stat: float | None
+    p_value: float | None
+    ci_low: float | None
+    ci_high: float | None
+    vif: float | None
+
+
+class QualityOut(BaseModel):
+    n_obs: int
+    r_squared: float | None
+    adj_r_squared: float | None
+    f_stat: float | None
+    f_p_value: float | None
+    sigma: float | None
+    aic: float | None
+    bic: float | None
+    holdout_wape: float | None
+
+
+class DiagnosticsOut(BaseModel):
+    condition_number: float | None
+    durbin_watson: float | None
+    breusch_pagan_p: float | None
+    jarque_bera_p: float | None
+    first_stage_f: float | None = None
+    endogeneity_p: float | None = None
+
+
+class WarningOut(BaseModel):
+    code: str
+    message: str
+
+
+class GateOut(BaseModel):
+    name: str
+    passed: bool
+    detail: str
+
+
+class GatesOut(BaseModel):
+    passed: bool
+    checks: list[GateOut]
+
+
+class WindowOut(BaseModel):
+    first_period: str | None
+    last_period: str | None
+    n_obs: int
+    n_window: int
+    n_stockouts_excluded: int
+    n_zero_units_dropped: int
+    n_missing_dropped: int
+    holdout_periods: int
+
+
+class PooledOut(BaseModel):
+    family: str
+    raw: float | None
+    raw_std_error: float | None
+    pooled: float | None
+    pooled_std_error: float | None
+    family_mean: float | None
+    between_variance: float | None
+    weight_on_family: float | None
+    n_products: int
+
+
+FitStatus = Literal["active", "superseded", "rejected"]
+
+
+class FitSummary(BaseModel):
+    id: int
+    sku: str
+    version: int
+    status: FitStatus
+    form: str
+    n_obs: int
+    own_price_estimate: float | None
+    holdout_wape: float | None
+    created_at: dt.datetime
+
+
+class FitOut(FitSummary):
+    """A fit record: what `demand-model` returns for the active fit."""
+
+    spec: dict[str, Any]
+    equation: str
+    coefficients: list[CoefficientOut]
+    quality: QualityOut
+    diagnostics: DiagnosticsOut
+    warnings: list[WarningOut]
+    gates: GatesOut
+    window: WindowOut
+    price_range: list[float]
+    candidate_scores: dict[str, float | None] = Field(
+        description="Rolling-origin hold-out WAPE of each candidate form (form `auto`)"
+    )
+    pooled: PooledOut | None
+
+
+class ElasticityOut(BaseModel):
+    name: str = Field(description="`price`, a covariate name or another product's sku")
+    kind: Literal["own", "cross", "covariate"]
+    value: float | None
+    std_error: float | None
+    ci_low: float | None
+    ci_high: float | None
+    class_: str | None = Field(
+        alias="class",
+        serialization_alias="class",
+        description="elastic / inelastic / unit-elastic (own price); substitute / complement "
+        "/ no clear relation (cross price); inferior / necessity / luxury (income-like)",
+    )
+
+    model_config = ConfigDict(populate_by_name=True)
+
+
+class ElasticitiesOut(BaseModel):
+    sku: str
+    fit_id: int
+    form: str
+    at: str
+    point: dict[str, float | None]
+    level: float
+    elasticities: list[ElasticityOut]
+    pooled: PooledOut | None
+    warnings: list[WarningOut]
+
+
+class PredictRequest(Strict):
+    price: PositiveMoney
+    covariates: dict[CovariateName, FiniteNumber] = Field(
+        default_factory=dict, description="Covariate values; others stay at the latest period's"
+    )
+    cross_prices: dict[Sku, PositiveMoney] = Field(
+        default_factory=dict, description="Other products' prices; others stay at the latest"
+    )
+    unit_cost: Money | None = Field(
+        default=None, description="For profit; default: the product's unit_cost"
+    )
+    level: Annotated[float, Field(strict=True, gt=0.5, lt=1.0)] = 0.95
+
+
+class PredictionOut(BaseModel):
+    sku: str
+    fit_id: int
+    form: str
+    price: float
+    expected_units: float | None
+    interval_low: float | None
+    interval_high: float | None
+    level: float
+    revenue: float | None
+    profit: float | None
+    unit_cost: float | None
+    point: dict[str, float | None]
+    warnings: list[WarningOut]
+
+
+# -- rows to responses
+
+
+def fit_summary(row: FitRow, sku: str) -> FitSummary:
+    return FitSummary(
+        id=row.id,
+        sku=sku,
+        version=row.version,
+        status=row.status,
+        form=row.form,
+        n_obs=row.n_obs,
+        own_price_estimate=row.own_price_estimate,
+        holdout_wape=row.holdout_wape,
+        created_at=as_utc(row.created_at),
+    )
+
+
+def fit_out(row: FitRow, sku: str) -> FitOut:
+    result = row.result
+    return FitOut(
+        **fit_summary(row, sku).model_dump(),
+        spec=row.spec,
+        equation=result["equation"],
+        coefficients=result["coefficients"],
+        quality=result["quality"],
+        diagnostics=result["diagnostics"],
+        warnings=result["warnings"],
+        gates=row.gates or {"passed": False, "checks": []},
+        window=result["window"],
+        price_range=list(result["price_range"]),
+        candidate_scores=result.get("candidate_scores") or {},
+        pooled=result.get("pooled"),
+    )

@@ -1,0 +1,1 @@
+"""Background work: the job queue, the worker, schedules and progress display."""

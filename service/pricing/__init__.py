@@ -1,0 +1,1 @@
+"""Pricing: recommended prices for a product or a family, and reprice jobs."""

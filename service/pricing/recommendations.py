@@ -1,0 +1,306 @@
+"""The pricing use cases: optimal prices for one product or a family, and storing them.
+
+The numbers come from the numerical library (`models.optimal_price` and
+`models.optimal_family_prices`, called from this module only); this module finds the
+active fits, fills defaults from the catalogue and stores the recommendations it gives.
+The routes, the reprice job and the analyst view's charts all price through it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any, Protocol, cast
+
+from sqlalchemy import Table, func, insert, select
+from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
+
+from models import (
+    DemandFit,
+    PriceConstraints,
+    PriceRecommendation,
+    optimal_family_prices,
+    optimal_price,
+)
+from service.core.errors import (
+    Conflict,
+    ErrorItem,
+    InvalidInput,
+    NotFound,
+    library_errors,
+)
+from service.core.tables import ProductRow, RecommendationRow, utcnow
+from service.estimation.fits import active_fit, product_with_active_fit
+from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
+
+
+class PricedProduct(Protocol):
+    """What pricing reads of a product: any view of the catalogue record that has these."""
+
+    @property
+    def sku(self) -> str: ...
+    @property
+    def unit_cost(self) -> float | None: ...
+    @property
+    def current_price(self) -> float | None: ...
+    @property
+    def min_price(self) -> float | None: ...
+    @property
+    def max_price(self) -> float | None: ...
+
+
+def price_constraints(product: PricedProduct, rules: ConstraintsIn) -> PriceConstraints:
+    """Request rules, with the product's own price bounds where the request has none."""
+    values = rules.model_dump()
+    values["min_price"] = (
+        values["min_price"] if values["min_price"] is not None else (product.min_price)
+    )
+    values["max_price"] = (
+        values["max_price"] if values["max_price"] is not None else (product.max_price)
+    )
+    values["price_endings"] = tuple(values["price_endings"])
+    with library_errors():
+        return PriceConstraints(**values)
+
+
+def current_price(
+    product: PricedProduct, fit: DemandFit, given: float | None
+) -> float | None:
+    if given is not None:
+        return given
+    if product.current_price is not None:
+        return product.current_price
+    return fit.variable_latest.get("price")
+
+
+def check_scenario(fit: DemandFit, scenario: dict[str, Any], prefix: str = "scenario") -> None:
+    """Refuse scenario values for variables the fit does not have."""
+    known = set(fit.variable_means) - {"price"}
+    unknown = sorted(set(scenario) - known)
+    if unknown:
+        raise InvalidInput(
+            "the scenario names variables the fit does not have",
+            errors=[
+                ErrorItem(
+                    field=f"{prefix}.{name}",
+                    message=f"not a variable of the fit; known: {sorted(known)}",
+                )
+                for name in unknown
+            ],
+        )
+
+
+def price_product(
+    fit: DemandFit,
+    product: PricedProduct,
+    request: OptimalPriceRequest,
+    *,
+    scenario: dict[str, float] | None = None,
+) -> PriceRecommendation:
+    """One product's optimal price under the request's rules, the product's own terms
+    filling what the request leaves out (the one place a single price is worked out).
+
+    Raises domain errors: :class:`~service.core.errors.WrongSign` when the fit says
+    demand rises with price (unless forced), :class:`~service.core.errors.InvalidInput`
+    for rules no price meets or numbers the arithmetic cannot handle.
+    """
+    with library_errors(subject="no price can be recommended from this fit", spec_field="body"):
+        return optimal_price(
+            fit,
+            objective=request.objective,
+            unit_cost=request.unit_cost if request.unit_cost is not None else product.unit_cost,
+            current_price=current_price(product, fit, request.current_price),
+            constraints=price_constraints(product, request.constraints),
+            scenario=request.scenario if scenario is None else scenario,
+            uncertainty_draws=request.uncertainty_draws,
+            seed=request.seed,
+            curve_points=request.curve_points,
+            force=request.force,
+        )
+
+
+@dataclass(frozen=True)
+class Priced:
+    """A recommendation worked out in a read transaction, ready to be stored."""
+
+    product_id: int
+    sku: str
+    fit_id: int
+    objective: str
+    request: dict[str, Any]
+    result: dict[str, Any]
+
+
+def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Priced:
+    """One product's recommendation (not yet stored: see :func:`store`)."""
+    product, fit_id, fit = product_with_active_fit(session, sku)
+    check_scenario(fit, body.scenario)
+    result = price_product(fit, product, body)
+    return Priced(
+        product_id=product.id,
+        sku=product.sku,
+        fit_id=fit_id,
+        objective=body.objective,
+        request=body.model_dump(),
+        result=result.to_dict(),
+    )
+
+
+_RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
+_INSERT_RECOMMENDATIONS = insert(_RECOMMENDATIONS).returning(
+    _RECOMMENDATIONS.c.id, sort_by_parameter_order=True
+)
+
+
+def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
+    """Store worked-out recommendations in one short write transaction.
+
+    Pricing reads and optimises outside the write lock, so concurrent requests do not
+    queue behind each other's arithmetic; if a product or fit was deleted in between,
+    the request fails as if it had come a moment later.
+    """
+    now = utcnow()
+    try:
+        # Core, not the ORM: no objects to track, and no ORM bulk-insert machinery.
+        ids = (
+            session.connection()
+            .scalars(
+                _INSERT_RECOMMENDATIONS,
+                [
+                    {
+                        "product_id": p.product_id,
+                        "fit_id": p.fit_id,
+                        "objective": p.objective,
+                        "request": p.request,
+                        "result": p.result,
+                        "created_at": now,
+                    }
+                    for p in priced
+                ],
+            )
+            .all()
+        )
+    except IntegrityError:
+        raise NotFound(
+            "the product or its fit was deleted while the price was worked out"
+        ) from None
+    return [
+        answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now)
+        for row_id, p in zip(ids, priced, strict=True)
+    ]
+
+
+def recommend_family(
+    session: Session, *, family: str, body: FamilyPriceRequest
+) -> tuple[dict[str, Any], list[Priced]]:
+    """Joint prices for the products of a family that have an active fit: the answer
+    without its stored products, and the recommendations to store (see :func:`store`)."""
+    members = list(
+        session.scalars(
+            select(ProductRow).where(ProductRow.family == family).order_by(ProductRow.sku)
+        )
+    )
+    if not members:
+        raise NotFound(f"no products in family {family!r}")
+    unknown = sorted(set(body.product_constraints) - {m.sku for m in members})
+    unknown += sorted({s for pair in body.order for s in pair} - {m.sku for m in members})
+    if unknown:
+        raise InvalidInput(
+            "rules name products outside the family",
+            errors=[
+                ErrorItem(field="product_constraints", message=f"{s!r} is not in {family!r}")
+                for s in unknown
+            ],
+        )
+    fits: dict[str, DemandFit] = {}
+    fit_ids: dict[str, int] = {}
+    excluded = []
+    for member in members:
+        try:
+            fit_ids[member.sku], fits[member.sku] = active_fit(session, member)
+        except NotFound:
+            excluded.append({"sku": member.sku, "reason": "no active fit"})
+    if not fits:
+        raise Conflict(f"no product of family {family!r} has an active fit to price with")
+    by_sku = {m.sku: m for m in members}
+    for sku, fit in fits.items():
+        shared = {k: v for k, v in body.scenario.items() if not isinstance(v, dict)}
+        own = body.scenario.get(sku, {})
+        check_scenario(
+            fit,
+            {k: v for k, v in shared.items() if k in fit.variable_means}
+            | (own if isinstance(own, dict) else {}),
+            prefix=f"scenario.{sku}",
+        )
+    order = [(a, b) for a, b in body.order if a in fits and b in fits]
+    with library_errors(subject="no prices can be recommended from these fits", spec_field="body"):
+        result = optimal_family_prices(
+            fits,
+            objective=body.objective,
+            unit_costs={s: by_sku[s].unit_cost for s in fits},
+            current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
+            constraints={
+                s: price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints))
+                for s in fits
+            },
+            order=order,
+            max_total_change_pct=body.max_total_change_pct,
+            scenario=body.scenario,
+            uncertainty_draws=body.uncertainty_draws,
+            seed=body.seed,
+            force=body.force,
+        )
+    data = result.to_dict()
+    request = {"family": family, **body.model_dump()}
+    priced = [
+        Priced(
+            product_id=by_sku[item["sku"]].id,
+            sku=item["sku"],
+            fit_id=fit_ids[item["sku"]],
+            objective=body.objective,
+            request=request,
+            result=item,
+        )
+        for item in data["products"]
+    ]
+    answer = {k: v for k, v in data.items() if k != "products"}
+    return {**answer, "family": family, "excluded": excluded}, priced
+
+
+def answer(
+    result: dict[str, Any], *, row_id: int, sku: str, fit_id: int | None, created_at: dt.datetime
+) -> dict[str, Any]:
+    """A stored recommendation as the API answers it."""
+    return {**result, "id": row_id, "sku": sku, "fit_id": fit_id, "created_at": created_at}
+
+
+def latest_page(
+    session: Session,
+    *,
+    family: str | None,
+    since: dt.datetime | None,
+    limit: int,
+    after_sku: str | None,
+) -> tuple[list[tuple[RecommendationRow, str]], bool]:
+    """The newest recommendation of each product, by sku."""
+    newest = select(func.max(RecommendationRow.id).label("id")).group_by(
+        RecommendationRow.product_id
+    )
+    if since is not None:
+        newest = newest.where(RecommendationRow.created_at >= since)
+    ids = newest.subquery()
+    query = (
+        select(RecommendationRow, ProductRow.sku)
+        .join(ids, ids.c.id == RecommendationRow.id)
+        .join(ProductRow, ProductRow.id == RecommendationRow.product_id)
+        .order_by(ProductRow.sku)
+        .limit(limit + 1)
+    )
+    if family is not None:
+        query = query.where(ProductRow.family == family)
+    if after_sku is not None:
+        query = query.where(ProductRow.sku > after_sku)
+    rows = [(r, s) for r, s in session.execute(query).all()]
+    return rows[:limit], len(rows) > limit

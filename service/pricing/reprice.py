@@ -1,0 +1,95 @@
+"""The reprice job: one stored recommendation per product with an active fit in scope."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from sqlalchemy import insert, select
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.core.db import session_scope
+from service.core.errors import ServiceError, WrongSign
+from service.core.settings import Settings
+from service.core.tables import FitRow, ProductRow, RecommendationRow, utcnow
+from service.estimation.fit_cache import fit_cache
+from service.estimation.gates import ACTIVE
+from service.jobs import queue as jobs
+from service.pricing.recommendations import price_product
+from service.pricing.schemas import OptimalPriceRequest
+
+
+def run_reprice(
+    factories: tuple[sessionmaker[Session], sessionmaker[Session]],
+    *,
+    job_id: int,
+    settings: Settings,
+    on_progress: jobs.ProgressCallback | None = None,
+) -> jobs.Progress:
+    reads, writes = factories
+    progress = jobs.Progress()
+    progress.counts["recommended"] = 0
+    with session_scope(reads) as session:
+        job = jobs.get_or_raise(session, job_id=job_id)
+        request = OptimalPriceRequest.model_validate((job.options or {}).get("request") or {})
+        rows = session.execute(
+            select(ProductRow, FitRow.id, FitRow.created_at)
+            .outerjoin(FitRow, (FitRow.product_id == ProductRow.id) & (FitRow.status == ACTIVE))
+            .where(jobs.scope_filter(job.scope))
+            .order_by(ProductRow.sku)
+        ).all()
+        products = [(row[0], row[1], row[2]) for row in rows]
+        for product, _, _ in products:
+            session.expunge(product)
+    found = {p.sku for p, _, _ in products}
+    for sku in job.scope.get("skus", []):
+        if sku not in found:
+            progress.total += 1
+            progress.done += 1
+            progress.counts["failed"] += 1
+            progress.add_error(sku, "no such product")
+    progress.total += len(products)
+    size = settings.job_batch_size
+    for start in range(0, len(products), size):
+        batch = products[start : start + size]
+        records: list[dict[str, Any]] = []
+        with session_scope(reads) as session:
+            for product, fit_id, created_at in batch:
+                if fit_id is None:
+                    progress.counts["skipped"] += 1
+                    progress.add_error(product.sku, "skipped: no active fit")
+                    continue
+                fit = fit_cache.get(session, fit_id, created_at)
+                scenario = {k: v for k, v in request.scenario.items() if k in fit.variable_means}
+                try:
+                    result = price_product(fit, product, request, scenario=scenario)
+                except WrongSign as exc:
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, f"refused: {exc.reason}")
+                    continue
+                except ServiceError as exc:
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, exc.detail)
+                    continue
+                except ValueError as exc:  # a stored value the library refuses
+                    progress.counts["failed"] += 1
+                    progress.add_error(product.sku, str(exc))
+                    continue
+                progress.counts["recommended"] += 1
+                records.append(
+                    {
+                        "product_id": product.id,
+                        "fit_id": fit_id,
+                        "objective": request.objective,
+                        "request": {"job_id": job_id, **request.model_dump()},
+                        "result": result.to_dict(),
+                        "created_at": utcnow(),
+                    }
+                )
+        with session_scope(writes) as session:
+            if records:
+                session.execute(insert(RecommendationRow), records)
+            progress.done += len(batch)
+            jobs.save_progress(session, job_id=job_id, progress=progress)
+        if on_progress:
+            on_progress(progress)
+    return progress

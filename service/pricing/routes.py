@@ -1,0 +1,136 @@
+"""Recommended prices: one product, a whole family, and the latest ones for back ends."""
+
+from __future__ import annotations
+
+from typing import Annotated
+
+from fastapi import APIRouter, Path, Query, Request
+from fastapi.concurrency import run_in_threadpool
+
+from service.catalogue.product_routes import SkuPath
+from service.core.db import session_scope
+from service.core.deps import READ, ReadSession, read_sessions
+from service.core.pagination import decode_cursor, encode_cursor
+from service.core.responses import problems
+from service.core.schemas import SKU_PATTERN, DateTimeText, Page
+from service.core.tables import as_utc
+from service.pricing import recommendations as pricing
+from service.pricing.schemas import (
+    FamilyPriceRequest,
+    FamilyRecommendationOut,
+    OptimalPriceRequest,
+    RecommendationOut,
+)
+
+router = APIRouter(tags=["prices"])
+
+CAUTION = (
+    " Recommendations are estimates from past data, not instructions: have a person or a "
+    "written policy approve prices before they go live, and check them against the pricing "
+    "rules of your jurisdiction (emergency price caps, below-cost sales, reference prices, "
+    "competition law)."
+)
+
+
+@router.post(
+    "/v1/products/{sku}/optimal-price",
+    response_model=RecommendationOut,
+    response_model_exclude_none=False,
+    dependencies=[READ],
+    operation_id="optimal_price",
+    summary="Recommend the revenue- or profit-maximising price under business rules",
+    description=(
+        "Uses the product's active fit. Prices stay within the observed range widened by "
+        "10% unless `allow_extrapolation` is set; any price outside the observed range is "
+        "warned. A fit whose own-price effect has the wrong sign is refused with 409 unless "
+        "`force`." + CAUTION
+    ),
+    responses=problems(404, 409, 422),
+)
+async def optimal_price(
+    sku: SkuPath, body: OptimalPriceRequest, request: Request
+) -> RecommendationOut:
+    # The hottest route for back ends: its whole body is one worker-thread call.
+    return await run_in_threadpool(_optimal_price, request, sku, body)
+
+
+def _optimal_price(request: Request, sku: str, body: OptimalPriceRequest) -> RecommendationOut:
+    # Read and optimise outside the write lock; one connection at a time.
+    with session_scope(read_sessions(request)) as reader:
+        priced = pricing.recommend(reader, sku=sku, body=body)
+    stored = request.app.state.recommendation_writer.submit([priced])[0]
+    return RecommendationOut(**stored)
+
+
+@router.post(
+    "/v1/families/{family}/optimal-prices",
+    response_model=FamilyRecommendationOut,
+    dependencies=[READ],
+    operation_id="family_optimal_prices",
+    summary="Recommend joint prices for a family, with cross-price effects and ladder rules",
+    description=(
+        "Maximises the family's total revenue or profit over the prices of its products "
+        "that have an active fit (the others are listed in `excluded`)." + CAUTION
+    ),
+    responses=problems(404, 409, 422),
+)
+async def family_optimal_prices(
+    family: Annotated[str, Path(pattern=SKU_PATTERN)],
+    body: FamilyPriceRequest,
+    request: Request,
+) -> FamilyRecommendationOut:
+    return await run_in_threadpool(_family_optimal_prices, request, family, body)
+
+
+def _family_optimal_prices(
+    request: Request, family: str, body: FamilyPriceRequest
+) -> FamilyRecommendationOut:
+    with session_scope(read_sessions(request)) as reader:
+        answer, priced = pricing.recommend_family(reader, family=family, body=body)
+    stored = request.app.state.recommendation_writer.submit(priced)
+    return FamilyRecommendationOut(**answer, products=stored)
+
+
+@router.get(
+    "/v1/recommendations",
+    response_model=Page[RecommendationOut],
+    dependencies=[READ],
+    operation_id="list_recommendations",
+    summary="The latest recommendation of each product, for back ends that pull nightly",
+    responses=problems(422),
+)
+def list_recommendations(
+    session: ReadSession,
+    family: Annotated[str | None, Query(pattern=SKU_PATTERN)] = None,
+    since: Annotated[
+        DateTimeText | None,
+        Query(description="Only recommendations made at or after this time (RFC 3339)"),
+    ] = None,
+    limit: Annotated[int, Query(ge=1, le=500)] = 100,
+    cursor: Annotated[
+        str | None, Query(description="From `next_cursor` of the previous page")
+    ] = None,
+) -> Page[RecommendationOut]:
+    position = decode_cursor(cursor)
+    after = str(position["after"]) if position and "after" in position else None
+    since_utc = as_utc(since) if since is not None else None
+    rows, more = pricing.latest_page(
+        session, family=family, since=since_utc, limit=limit, after_sku=after
+    )
+    items = [
+        RecommendationOut(
+            **{
+                **pricing.answer(
+                    row.result,
+                    row_id=row.id,
+                    sku=sku,
+                    fit_id=row.fit_id,
+                    created_at=as_utc(row.created_at),
+                ),
+                "curve": None,
+            }
+        )
+        for row, sku in rows
+    ]
+    next_cursor = encode_cursor({"after": rows[-1][1]}) if more and rows else None
+    return Page[RecommendationOut](items=items, next_cursor=next_cursor)

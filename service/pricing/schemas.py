@@ -1,0 +1,203 @@
+"""Request and response bodies of recommended prices."""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Annotated, Any, Literal
+
+from pydantic import (
+    BaseModel,
+    Field,
+    StringConstraints,
+    model_validator,
+)
+
+from service.core.schemas import NAME_PATTERN, Money, PositiveMoney, Sku, Strict
+from service.estimation.schemas import WarningOut
+
+Objective = Literal["profit", "revenue"]
+Percent = Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
+
+
+class ConstraintsIn(Strict):
+    """Business rules for a recommended price; product defaults fill min/max price."""
+
+    min_price: PositiveMoney | None = None
+    max_price: PositiveMoney | None = None
+    max_change_pct: Percent | None = Field(
+        default=None, description="Largest move from the current price, in percent"
+    )
+    min_margin_pct: Annotated[float, Field(strict=True, lt=100, allow_inf_nan=False)] | None = (
+        Field(default=None, description="Lowest (price - unit cost) / price, in percent")
+    )
+    price_step: PositiveMoney | None = Field(
+        default=None, description="Allowed prices are multiples of this, e.g. 0.05"
+    )
+    price_endings: list[Annotated[float, Field(strict=True, ge=0, lt=1)]] = Field(
+        default_factory=list, description="Allowed cent endings, e.g. [0.49, 0.99]"
+    )
+    max_units: Money | None = Field(
+        default=None, description="Stock that can be sold in the period"
+    )
+    min_units: Money | None = None
+    allow_extrapolation: bool = Field(
+        default=False,
+        description="Allow prices beyond the observed range widened by 10% (always warned)",
+    )
+
+
+ScenarioValue = Annotated[float, Field(strict=True, allow_inf_nan=False)]
+
+
+class OptimalPriceRequest(Strict):
+    objective: Objective = "profit"
+    constraints: ConstraintsIn = Field(default_factory=ConstraintsIn)
+    scenario: dict[Annotated[str, StringConstraints(pattern=NAME_PATTERN)], ScenarioValue] = Field(
+        default_factory=dict,
+        description="Covariate values and other products' prices (by sku); the rest "
+        "stay at the latest fitted period's values",
+    )
+    unit_cost: Money | None = Field(default=None, description="Default: the product's")
+    current_price: PositiveMoney | None = Field(
+        default=None, description="Default: the product's, else the latest observed price"
+    )
+    uncertainty_draws: Annotated[int, Field(strict=True, ge=0, le=2000)] = 0
+    seed: Annotated[int, Field(strict=True, ge=0)] = 0
+    curve_points: Annotated[int, Field(strict=True, ge=0, le=200)] = Field(
+        default=0, description="0 for no curve, else 50 to 200 points for plotting"
+    )
+    force: bool = Field(
+        default=False, description="Optimise even when the own-price effect has the wrong sign"
+    )
+
+    @model_validator(mode="after")
+    def _curve_size(self) -> OptimalPriceRequest:
+        if 0 < self.curve_points < 50:
+            raise ValueError("curve_points must be 0 or between 50 and 200")
+        return self
+
+
+class PricePointOut(BaseModel):
+    price: float | None
+    units: float | None
+    revenue: float | None
+    profit: float | None
+    margin_pct: float | None
+
+
+class RangeOut(BaseModel):
+    low: float | None
+    high: float | None
+
+
+class UncertaintyOut(BaseModel):
+    draws: int
+    level: float
+    price_interval: list[float | None] | None
+    profit_interval: list[float | None] | None
+    revenue_interval: list[float | None] | None
+    prob_better_than_current: float | None
+    n_used: int
+    n_wrong_sign: int
+    n_infeasible: int
+    n_unbounded: int
+
+
+class CurvePointOut(BaseModel):
+    price: float | None
+    units: float | None
+    revenue: float | None
+    profit: float | None
+    feasible: bool
+
+
+class RecommendationOut(BaseModel):
+    """A recommended price: estimates from past data, for a person to approve."""
+
+    id: int
+    sku: str
+    fit_id: int | None
+    created_at: dt.datetime
+    form: str
+    objective: Objective
+    unit_cost: float | None
+    current: PricePointOut | None
+    recommended: PricePointOut
+    change_pct: float | None
+    unconstrained_price: float | None = Field(
+        description="The best price with no business rule (null when there is none)"
+    )
+    binding_constraints: list[str]
+    feasible_range: RangeOut | None
+    uncertainty: UncertaintyOut | None
+    warnings: list[WarningOut]
+    curve: list[CurvePointOut] | None = None
+    scenario: dict[str, Any]
+    method: str
+    success: bool
+    status: int
+    message: str
+    nit: int
+
+
+class FamilyPriceRequest(Strict):
+    objective: Objective = "profit"
+    constraints: ConstraintsIn = Field(
+        default_factory=ConstraintsIn, description="Rules for every product of the family"
+    )
+    product_constraints: dict[Sku, ConstraintsIn] = Field(
+        default_factory=dict, description="Rules for one product, replacing the shared ones"
+    )
+    order: list[Annotated[list[Sku], Field(min_length=2, max_length=2)]] = Field(
+        default_factory=list, description="Price ladder: [a, b] means price(a) <= price(b)"
+    )
+    max_total_change_pct: Percent | None = Field(
+        default=None, description="Cap on the move of the family's unit-weighted price index"
+    )
+    scenario: dict[str, Any] = Field(
+        default_factory=dict,
+        description="Shared covariate values, or {sku: {name: value}} for one product",
+    )
+    uncertainty_draws: Annotated[int, Field(strict=True, ge=0, le=1000)] = 0
+    seed: Annotated[int, Field(strict=True, ge=0)] = 0
+    force: bool = False
+
+
+class FamilyTotalFigures(BaseModel):
+    units: float | None
+    revenue: float | None
+    profit: float | None
+
+
+class FamilyTotalOut(BaseModel):
+    current: FamilyTotalFigures | None
+    recommended: FamilyTotalFigures
+    objective_change_pct: float | None
+    price_index_change_pct: float | None
+    profit_interval: list[float | None] | None
+    revenue_interval: list[float | None] | None
+    prob_better_than_current: float | None
+
+
+class ExcludedProduct(BaseModel):
+    sku: str
+    reason: str
+
+
+class FamilyRecommendationOut(BaseModel):
+    family: str
+    objective: Objective
+    products: list[RecommendationOut]
+    total: FamilyTotalOut
+    order: list[list[str]]
+    max_total_change_pct: float | None
+    binding_constraints: list[str]
+    warnings: list[WarningOut]
+    excluded: list[ExcludedProduct] = Field(
+        description="Family products left out (no active fit), with the reason"
+    )
+    method: str
+    success: bool
+    status: int
+    message: str
+    nit: int
