@@ -7,7 +7,7 @@ prices), its demand fitted, and the profit-maximising price recommended under th
 default guard. The score is the true expected profit at the recommendation over the
 true expected profit at the true optimum within the same allowed prices.
 
-Run ``python -m tests.test_pricing_truth`` to print the distribution for reports.
+Run ``python -m tests.models.test_pricing_truth`` to print the distribution for reports.
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """Recover the truth: fits on the seeded tea-shop generator against its known parameters.
 
-Run ``python -m tests.test_estimation_truth`` to print the figures (coverage per form,
-auto pick rates) for reports.
+Run ``python -m tests.models.test_estimation_truth`` to print the figures (coverage per
+form, auto pick rates) for reports.
 """
 
 from __future__ import annotations

@@ -1,0 +1,1 @@
+"""Tests of the numerical library, models/."""

@@ -1,0 +1,1 @@
+"""Tests of the service, one folder per feature package of service/."""

@@ -1,0 +1,1 @@
+"""Tests of the whole running service: fuzzing, concurrency, faults, hostile input, load."""
