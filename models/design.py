@@ -50,7 +50,9 @@ class Term:
         """The design value of this term for a variable value."""
         if self.transform == "log":
             if not value > 0.0:
-                raise ValueError(f"{self.source} must be positive for the log term {self.name}")
+                raise UnusableDataError(
+                    f"{self.source} must be positive for the log term {self.name}"
+                )
             return float(np.log(value))
         return float(value)
 

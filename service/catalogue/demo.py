@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from models.scenario import Catalogue, ScenarioProduct, generate_catalogue
+from models import Catalogue, ScenarioProduct, generate_catalogue
 from service.catalogue import products
 from service.catalogue.ingest import covariates_json
 from service.catalogue.observations import ObservationTuple, ObservationWriter

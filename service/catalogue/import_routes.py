@@ -11,7 +11,7 @@ from starlette.concurrency import run_in_threadpool
 from service.catalogue import ingest
 from service.catalogue.schemas import ImportResult
 from service.core.db import session_scope
-from service.core.deps import WRITE, SettingsDep
+from service.core.deps import WRITE, BulkSessions, SettingsDep
 from service.core.errors import UnsupportedMediaType
 from service.core.responses import problems
 
@@ -40,6 +40,7 @@ CSV_EXAMPLE = (
 async def import_observations(
     request: Request,
     settings: SettingsDep,
+    bulk: BulkSessions,
     create_products: Annotated[
         bool, Query(description="Create products for skus not yet in the catalogue")
     ] = False,
@@ -61,7 +62,7 @@ async def import_observations(
         spool.seek(0)
 
         def run() -> ingest.UpsertOutcome:
-            with session_scope(request.app.state.bulk_sessions) as session:
+            with session_scope(bulk) as session:
                 return ingest.import_csv(
                     session,
                     spool,

@@ -6,8 +6,8 @@ from typing import Annotated
 
 from fastapi import APIRouter, Query
 
-from service.catalogue import ingest, observations, products
-from service.catalogue.product_routes import SkuPath
+from service.catalogue import ingest, observations
+from service.catalogue.deps import ReadProduct, WriteProduct
 from service.catalogue.schemas import (
     ObservationBatch,
     ObservationOut,
@@ -31,10 +31,9 @@ router = APIRouter(prefix="/v1/products/{sku}/observations", tags=["observations
     responses=problems(404, 413, 422),
 )
 def upsert_observations(
-    sku: SkuPath, body: ObservationBatch, session: WriteSession
+    product: WriteProduct, body: ObservationBatch, session: WriteSession
 ) -> UpsertCounts:
     """Keyed on period: a period sent again replaces the stored one. All rows or none."""
-    product = products.get_or_raise(session, sku=sku)
     outcome = ingest.upsert_batch(session, product_id=product.id, observations=body.observations)
     return UpsertCounts(rows=outcome.rows, inserted=outcome.inserted, updated=outcome.updated)
 
@@ -48,7 +47,7 @@ def upsert_observations(
     responses=problems(404, 422),
 )
 def list_observations(
-    sku: SkuPath,
+    product: ReadProduct,
     session: ReadSession,
     start: Annotated[DateText | None, Query(description="First period to include")] = None,
     end: Annotated[DateText | None, Query(description="Last period to include")] = None,
@@ -57,7 +56,6 @@ def list_observations(
         str | None, Query(description="From `next_cursor` of the previous page")
     ] = None,
 ) -> Page[ObservationOut]:
-    product = products.get_or_raise(session, sku=sku)
     position = decode_cursor(cursor)
     after = cursor_date(position, "after")
     rows, more = observations.list_range(

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Path, Query, Response, status
+from fastapi import APIRouter, Query, Response, status
 
 from service.catalogue import products
+from service.catalogue.deps import ReadProduct, SkuPath
 from service.catalogue.schemas import ProductIn, ProductOut, ProductPatch, product_out
 from service.core.deps import ADMIN, READ, WRITE, ReadSession, WriteSession
 from service.core.pagination import decode_cursor, encode_cursor
@@ -14,7 +15,6 @@ from service.core.responses import problems
 from service.core.schemas import SKU_PATTERN, Page
 
 router = APIRouter(prefix="/v1/products", tags=["products"])
-SkuPath = Annotated[str, Path(pattern=SKU_PATTERN, description="The product's sku")]
 
 
 @router.put(
@@ -44,8 +44,8 @@ def put_product(
     summary="Read a product",
     responses=problems(404, 422),
 )
-def get_product(sku: SkuPath, session: ReadSession) -> ProductOut:
-    return product_out(products.get_or_raise(session, sku=sku))
+def get_product(product: ReadProduct) -> ProductOut:
+    return product_out(product)
 
 
 @router.patch(

@@ -3,16 +3,18 @@
 from __future__ import annotations
 
 from collections.abc import Iterator
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import Depends, Header, Request
 from fastapi.concurrency import run_in_threadpool
 from fastapi.params import Depends as DependsParam
+from sqlalchemy import Engine
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.access import auth
 from service.access.auth import Principal, Scope
 from service.core.db import session_scope
+from service.core.group_commit import GroupWriter
 from service.core.settings import Settings
 
 
@@ -27,13 +29,25 @@ def _factory(request: Request, name: str) -> sessionmaker[Session]:
     return factory
 
 
-def read_sessions(request: Request) -> sessionmaker[Session]:
+async def read_sessions(request: Request) -> sessionmaker[Session]:
     """For routes that run their whole body in one worker-thread call."""
     return _factory(request, "read_sessions")
 
 
-def write_sessions(request: Request) -> sessionmaker[Session]:
-    return _factory(request, "write_sessions")
+async def bulk_sessions(request: Request) -> sessionmaker[Session]:
+    """Write sessions tuned for loading many rows (imports)."""
+    return _factory(request, "bulk_sessions")
+
+
+async def recommendation_writer(request: Request) -> GroupWriter[Any, dict[str, Any]]:
+    """The process's group commit of recommendations (see :mod:`service.core.group_commit`)."""
+    writer: GroupWriter[Any, dict[str, Any]] = request.app.state.recommendation_writer
+    return writer
+
+
+async def engine(request: Request) -> Engine:
+    found: Engine = request.app.state.engine
+    return found
 
 
 def read_session(request: Request) -> Iterator[Session]:
@@ -47,6 +61,10 @@ def write_session(request: Request) -> Iterator[Session]:
 
 
 SettingsDep = Annotated[Settings, Depends(get_settings_dep)]
+ReadSessions = Annotated[sessionmaker[Session], Depends(read_sessions)]
+BulkSessions = Annotated[sessionmaker[Session], Depends(bulk_sessions)]
+RecommendationWriter = Annotated[GroupWriter[Any, dict[str, Any]], Depends(recommendation_writer)]
+EngineDep = Annotated[Engine, Depends(engine)]
 # Scope "function": the session commits (or fails) before the response is sent, so a
 # client is never told that something was stored when the commit did not happen, and
 # reads that follow an answer see what it reported.

@@ -174,7 +174,7 @@ def from_library(
         return InvalidInput(
             f"the data of {sku!r} cannot support this model: {exc}"
             if sku
-            else f"the data cannot support this model: {exc}",
+            else f"{subject or 'the data cannot support this model'}: {exc}",
             errors=[ErrorItem(field=spec_field, message=str(exc))],
         )
     if isinstance(exc, WrongSignError):

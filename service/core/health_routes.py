@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Request
+from fastapi import APIRouter
 from fastapi.responses import JSONResponse
 from sqlalchemy.exc import SQLAlchemyError
 
 from service.core import migrate
+from service.core.deps import EngineDep, SettingsDep
 from service.core.schemas import Health, Readiness
 
 router = APIRouter(tags=["health"])
@@ -24,11 +25,10 @@ def health() -> Health:
     summary="Readiness: database reachable and schema at the latest migration",
     responses={503: {"model": Readiness, "description": "Not ready"}},
 )
-def readiness(request: Request) -> JSONResponse:
-    settings = request.app.state.settings
+def readiness(settings: SettingsDep, engine: EngineDep) -> JSONResponse:
     expected = migrate.head_revision(settings)
     try:
-        current = migrate.current_revision(request.app.state.engine)
+        current = migrate.current_revision(engine)
         reachable = True
     except SQLAlchemyError:
         current, reachable = None, False

@@ -7,7 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Header, Request, Response
 
 from service.core import metrics
-from service.core.deps import check_scope
+from service.core.deps import SettingsDep, check_scope
 
 router = APIRouter(tags=["health"])
 
@@ -21,10 +21,11 @@ router = APIRouter(tags=["health"])
 )
 def get_metrics(
     request: Request,
+    settings: SettingsDep,
     authorization: Annotated[str | None, Header(include_in_schema=False)] = None,
 ) -> Response:
     """Public unless `MARGINAL_METRICS_PUBLIC=false`, which asks for an admin key."""
-    if not request.app.state.settings.metrics_public:
+    if not settings.metrics_public:
         check_scope(request, authorization, "admin")
     body, content_type = metrics.exposition()
     return Response(body, media_type=content_type)

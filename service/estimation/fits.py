@@ -99,10 +99,16 @@ def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
     return found.id, fit_cache.get(session, found.id, found.created_at)
 
 
-def get_or_raise(session: Session, *, product: ProductRow, fit_id: int) -> FitRow:
-    row = session.get(FitRow, fit_id)
-    if row is None or row.product_id != product.id:
-        raise NotFound(f"product {product.sku!r} has no fit {fit_id}")
+def get_or_raise(session: Session, *, sku: str, fit_id: int) -> FitRow:
+    """A fit version of the product, or why there is none (no such product, or no such fit)."""
+    row = session.scalar(
+        select(FitRow)
+        .join(ProductRow, ProductRow.id == FitRow.product_id)
+        .where(FitRow.id == fit_id, ProductRow.sku == sku)
+    )
+    if row is None:
+        products.get_or_raise(session, sku=sku)
+        raise NotFound(f"product {sku!r} has no fit {fit_id}")
     return row
 
 

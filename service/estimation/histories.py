@@ -17,7 +17,7 @@ import numpy as np
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from models.history import History
+from models import History
 from service.core.errors import ErrorItem, InvalidInput
 from service.core.schemas import NAME_PATTERN
 from service.core.tables import ProductRow

@@ -31,8 +31,7 @@ from typing import Any, Generic, Protocol, TypeVar
 from sqlalchemy import Text, cast, func, make_url, select
 from sqlalchemy.orm import Session, sessionmaker
 
-from models import DemandFit, FitFailure, History, ModelSpec, SpecError, fit_many
-from models.spec import UNIT_COST
+from models import UNIT_COST, DemandFit, FitFailure, History, ModelSpec, SpecError, fit_many
 from service.catalogue.ingest import cyclic_gc_paused
 from service.core.db import session_scope
 from service.core.errors import NUMERIC_FAILURES, numeric_reason, strict_floats

@@ -2,21 +2,16 @@
 
 from __future__ import annotations
 
-import math
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, status
 
-import models
-from models.guards import price_range_warning
-from service.catalogue import products
-from service.catalogue.product_routes import SkuPath
+from service.catalogue.deps import ReadProduct, SkuPath
 from service.core.deps import READ, WRITE, ReadSession, SettingsDep, WriteSession
-from service.core.errors import NUMERIC_FAILURES, ErrorItem, InvalidInput, strict_floats, unusable
 from service.core.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import Page
-from service.estimation import fits
+from service.estimation import answers, fits
 from service.estimation.schemas import (
     ElasticitiesOut,
     FitOut,
@@ -61,19 +56,20 @@ def create_fit(
     responses=problems(404, 422),
 )
 def list_fits(
-    sku: SkuPath,
+    product: ReadProduct,
     session: ReadSession,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
     cursor: Annotated[
         str | None, Query(description="From `next_cursor` of the previous page")
     ] = None,
 ) -> Page[FitSummary]:
-    product = products.get_or_raise(session, sku=sku)
     position = decode_cursor(cursor)
     before = cursor_int(position, "before")
     rows, more = fits.list_page(session, product_id=product.id, limit=limit, before_version=before)
     next_cursor = encode_cursor({"before": rows[-1].version}) if more and rows else None
-    return Page[FitSummary](items=[fit_summary(r, sku) for r in rows], next_cursor=next_cursor)
+    return Page[FitSummary](
+        items=[fit_summary(r, product.sku) for r in rows], next_cursor=next_cursor
+    )
 
 
 @router.get(
@@ -87,8 +83,7 @@ def list_fits(
 def get_fit(
     sku: SkuPath, fit_id: Annotated[int, Path(ge=1, le=MAX_ID)], session: ReadSession
 ) -> FitOut:
-    product = products.get_or_raise(session, sku=sku)
-    return fit_out(fits.get_or_raise(session, product=product, fit_id=fit_id), sku)
+    return fit_out(fits.get_or_raise(session, sku=sku, fit_id=fit_id), sku)
 
 
 @router.get(
@@ -99,30 +94,8 @@ def get_fit(
     summary="The active fit: equation, coefficients, quality, diagnostics, warnings",
     responses=problems(404, 422),
 )
-def get_demand_model(sku: SkuPath, session: ReadSession) -> FitOut:
-    product = products.get_or_raise(session, sku=sku)
-    return fit_out(fits.active_or_raise(session, product=product), sku)
-
-
-def _parse_at(at: str) -> str | dict[str, float]:
-    if at in ("mean", "latest"):
-        return at
-    values: dict[str, float] = {}
-    for part in at.split(","):
-        name, _, number = part.partition(":")
-        try:
-            values[name] = float(number)
-        except ValueError:
-            raise InvalidInput(
-                "`at` has a value that is not a number",
-                errors=[ErrorItem(field="at", message=f"{part!r} is not name:number")],
-            ) from None
-        if not math.isfinite(values[name]):
-            raise InvalidInput(
-                "`at` has a value that is not a finite number",
-                errors=[ErrorItem(field="at", message=f"{part!r} overflows double precision")],
-            )
-    return values
+def get_demand_model(product: ReadProduct, session: ReadSession) -> FitOut:
+    return fit_out(fits.active_or_raise(session, product=product), product.sku)
 
 
 @router.get(
@@ -135,7 +108,7 @@ def _parse_at(at: str) -> str | dict[str, float]:
     responses=problems(404, 422),
 )
 def get_elasticities(
-    sku: SkuPath,
+    product: ReadProduct,
     session: ReadSession,
     at: Annotated[
         str,
@@ -151,41 +124,11 @@ def get_elasticities(
         Query(description="Covariates to classify as inferior / necessity / luxury"),
     ] = None,
 ) -> ElasticitiesOut:
-    product = products.get_or_raise(session, sku=sku)
     fit_id, fit = fits.active_fit(session, product)
-    point = _parse_at(at)
-    known = set(fit.variable_means)
-    unknown = sorted(set(point) - known) if isinstance(point, dict) else []
-    unknown += sorted(set(income_like or ()) - known)
-    if unknown:
-        raise InvalidInput(
-            "unknown variables for this fit",
-            errors=[
-                ErrorItem(
-                    field="at",
-                    message=f"{name!r} is not a variable of the fit; known: "
-                    f"{', '.join(sorted(known))}",
-                )
-                for name in unknown
-            ],
-        )
-    try:
-        with strict_floats():
-            report = models.elasticities(fit, at=point, income_like=tuple(income_like or ()))
-    except ValueError as exc:  # a log term met a non-positive value
-        raise InvalidInput(
-            "elasticities cannot be evaluated at these values",
-            errors=[ErrorItem(field="at", message=str(exc))],
-        ) from None
-    except NUMERIC_FAILURES as exc:
-        raise unusable("no elasticities at these values", exc, field="at") from None
-    body = report.to_dict()
-    warnings = []
-    price = report.point.get("price")
-    if price is not None and (w := price_range_warning(fit, price)) is not None:
-        warnings.append({"code": w.code, "message": w.message})
+    answer = answers.elasticities_at(fit, at=at, income_like=tuple(income_like or ()))
+    body = answer.report.to_dict()
     return ElasticitiesOut(
-        sku=sku,
+        sku=product.sku,
         fit_id=fit_id,
         form=body["form"],
         at=body["at"],
@@ -193,7 +136,7 @@ def get_elasticities(
         level=body["level"],
         elasticities=body["rows"],
         pooled=body["pooled"],
-        warnings=warnings,
+        warnings=answer.warnings,
     )
 
 
@@ -205,38 +148,14 @@ def get_elasticities(
     summary="Expected units at given prices and covariates, with a prediction interval",
     responses=problems(404, 422),
 )
-def predict(sku: SkuPath, body: PredictRequest, session: ReadSession) -> PredictionOut:
-    product = products.get_or_raise(session, sku=sku)
+def predict(product: ReadProduct, body: PredictRequest, session: ReadSession) -> PredictionOut:
     fit_id, fit = fits.active_fit(session, product)
-    unknown = [f"covariates.{n}" for n in body.covariates if n not in fit.variable_means]
-    unknown += [f"cross_prices.{s}" for s in body.cross_prices if s not in fit.variable_means]
-    if unknown:
-        raise InvalidInput(
-            "unknown variables for this fit",
-            errors=[
-                ErrorItem(field=name, message="not a variable of the active fit")
-                for name in unknown
-            ],
-        )
-    unit_cost = body.unit_cost if body.unit_cost is not None else product.unit_cost
-    try:
-        with strict_floats():
-            result = models.predict(
-                fit,
-                price=body.price,
-                covariates=body.covariates,
-                cross_prices=body.cross_prices,
-                unit_cost=unit_cost,
-                level=body.level,
-            )
-    except ValueError as exc:  # a log term met a non-positive value
-        raise InvalidInput(
-            "these values cannot enter the model",
-            errors=[ErrorItem(field="body", message=str(exc))],
-        ) from None
-    except NUMERIC_FAILURES as exc:
-        raise unusable("no prediction at these values", exc) from None
-    warnings = []
-    if (w := price_range_warning(fit, body.price)) is not None:
-        warnings.append({"code": w.code, "message": w.message})
-    return PredictionOut(**result.to_dict(), fit_id=fit_id, warnings=warnings)
+    answer = answers.prediction(
+        fit,
+        price=body.price,
+        covariates=body.covariates,
+        cross_prices=body.cross_prices,
+        unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
+        level=body.level,
+    )
+    return PredictionOut(**answer.report.to_dict(), fit_id=fit_id, warnings=answer.warnings)

@@ -2,14 +2,16 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+from typing import Annotated, Any
 
-from fastapi import APIRouter, Path, Query, Request
+from fastapi import APIRouter, Path, Query
 from fastapi.concurrency import run_in_threadpool
+from sqlalchemy.orm import Session, sessionmaker
 
-from service.catalogue.product_routes import SkuPath
+from service.catalogue.deps import SkuPath
 from service.core.db import session_scope
-from service.core.deps import READ, ReadSession, read_sessions
+from service.core.deps import READ, ReadSession, ReadSessions, RecommendationWriter
+from service.core.group_commit import GroupWriter
 from service.core.pagination import decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import SKU_PATTERN, DateTimeText, Page
@@ -23,6 +25,7 @@ from service.pricing.schemas import (
 )
 
 router = APIRouter(tags=["prices"])
+Writer = GroupWriter[Any, dict[str, Any]]
 
 CAUTION = (
     " Recommendations are estimates from past data, not instructions: have a person or a "
@@ -48,17 +51,19 @@ CAUTION = (
     responses=problems(404, 409, 422),
 )
 async def optimal_price(
-    sku: SkuPath, body: OptimalPriceRequest, request: Request
+    sku: SkuPath, body: OptimalPriceRequest, reads: ReadSessions, writer: RecommendationWriter
 ) -> RecommendationOut:
     # The hottest route for back ends: its whole body is one worker-thread call.
-    return await run_in_threadpool(_optimal_price, request, sku, body)
+    return await run_in_threadpool(_optimal_price, reads, writer, sku, body)
 
 
-def _optimal_price(request: Request, sku: str, body: OptimalPriceRequest) -> RecommendationOut:
+def _optimal_price(
+    reads: sessionmaker[Session], writer: Writer, sku: str, body: OptimalPriceRequest
+) -> RecommendationOut:
     # Read and optimise outside the write lock; one connection at a time.
-    with session_scope(read_sessions(request)) as reader:
+    with session_scope(reads) as reader:
         priced = pricing.recommend(reader, sku=sku, body=body)
-    stored = request.app.state.recommendation_writer.submit([priced])[0]
+    stored = writer.submit([priced])[0]
     return RecommendationOut(**stored)
 
 
@@ -77,17 +82,18 @@ def _optimal_price(request: Request, sku: str, body: OptimalPriceRequest) -> Rec
 async def family_optimal_prices(
     family: Annotated[str, Path(pattern=SKU_PATTERN)],
     body: FamilyPriceRequest,
-    request: Request,
+    reads: ReadSessions,
+    writer: RecommendationWriter,
 ) -> FamilyRecommendationOut:
-    return await run_in_threadpool(_family_optimal_prices, request, family, body)
+    return await run_in_threadpool(_family_optimal_prices, reads, writer, family, body)
 
 
 def _family_optimal_prices(
-    request: Request, family: str, body: FamilyPriceRequest
+    reads: sessionmaker[Session], writer: Writer, family: str, body: FamilyPriceRequest
 ) -> FamilyRecommendationOut:
-    with session_scope(read_sessions(request)) as reader:
+    with session_scope(reads) as reader:
         answer, priced = pricing.recommend_family(reader, family=family, body=body)
-    stored = request.app.state.recommendation_writer.submit(priced)
+    stored = writer.submit(priced)
     return FamilyRecommendationOut(**answer, products=stored)
 
 

@@ -7,7 +7,6 @@ builder returns a record whose ``note`` says in words why something is missing
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from dataclasses import dataclass
 from typing import Any
@@ -16,9 +15,14 @@ import numpy as np
 from pydantic import ValidationError
 from sqlalchemy.orm import Session
 
-from models import DemandFit, History, UnusableDataError, predict
-from models.design import build_design
-from models.forecast import expected_units
+from models import (
+    DemandFit,
+    History,
+    UnusableDataError,
+    fitted_periods,
+    fitted_units,
+    predict,
+)
 from service.core.errors import InvalidInput, WrongSign
 from service.core.tables import ProductRow
 from service.estimation import histories
@@ -348,7 +352,7 @@ def _stored_rules(
         source = f"recommendation {recommendation.id}"
     return PricingRules(
         request=OptimalPriceRequest.model_construct(
-            objective=objective if objective in ("profit", "revenue") else "profit",
+            objective="revenue" if objective == "revenue" else "profit",
             constraints=rules,
             scenario=scenario,
             unit_cost=float(unit_cost) if unit_cost is not None else None,
@@ -398,9 +402,7 @@ def money_inputs(subject: Subject) -> MoneyInputs:
     value = result.recommended.profit if objective == "profit" else result.recommended.revenue
     current_value = None
     if result.current is not None:
-        current_value = (
-            result.current.profit if objective == "profit" else result.current.revenue
-        )
+        current_value = result.current.profit if objective == "profit" else result.current.revenue
     uncertainty = result.uncertainty
     stored = _recommended_price(recommendation)
     note = None
@@ -455,51 +457,6 @@ class FitTimeInputs:
     note: str | None
 
 
-def _until(history: History, last: np.datetime64) -> History:
-    n = int(np.searchsorted(history.periods, last, side="right"))
-    return History(
-        sku=history.sku,
-        periods=history.periods[:n],
-        price=history.price[:n],
-        units=history.units[:n],
-        unit_cost=history.unit_cost[:n],
-        in_stock=history.in_stock[:n],
-        covariates={k: v[:n] for k, v in history.covariates.items()},
-        cross_prices={k: v[:n] for k, v in history.cross_prices.items()},
-    )
-
-
-def fitted_units(fit: DemandFit, history: History) -> np.ndarray:
-    """Expected units of every week from the fit's coefficients (nan where not computable).
-
-    Stockout weeks are included: there the model says what demand would have been.
-    """
-    spec = dataclasses.replace(
-        fit.spec,
-        window_periods=max(history.n_periods, 4),
-        exclude_stockouts=False,
-        instruments=(),
-    )
-    design = build_design(history, spec, fit.form)
-    names = [t.name for t in design.terms]
-    columns = [names.index(t.name) for t in fit.terms]  # the fit may have dropped terms
-    values = expected_units(fit.form, design.regressors[:, columns], fit.params, fit.smearing)
-    out = np.full(history.n_periods, np.nan)
-    out[np.searchsorted(history.periods, design.periods)] = values
-    return out
-
-
-def fitted_weeks(fit: DemandFit, history: History) -> tuple[np.ndarray, np.datetime64 | None]:
-    """Which weeks entered the estimation, and where its hold-out window starts."""
-    last = np.datetime64(fit.window.last_period, "D")
-    design = build_design(_until(history, last), fit.spec, fit.form)
-    used = design.periods[design.usable]
-    mask = np.isin(history.periods, used)
-    holdout = fit.window.holdout_periods
-    start = design.periods[-holdout] if 0 < holdout <= design.periods.size else None
-    return mask, start
-
-
 def fit_time_inputs(subject: Subject) -> FitTimeInputs:
     product, shown, history = subject.product, subject.fit, subject.history
     unfitted: dict[str, Any] = {
@@ -543,7 +500,7 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
     note = None if shown.active else "Rejected fit, shown for diagnosis only."
     try:
         fitted = fitted_units(fit, history)
-        in_fit, start = fitted_weeks(fit, history)
+        in_fit, start = fitted_periods(fit, history)
     except (UnusableDataError, ValueError):
         fitted, in_fit, start = None, no_weeks, None
         note = (note + " " if note else "") + "The fit cannot be evaluated on the stored history."

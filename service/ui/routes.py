@@ -14,7 +14,7 @@ from starlette.staticfiles import StaticFiles
 
 from service.access import view_session as session
 from service.access.view_session import COOKIE_NAME, Viewer
-from service.catalogue.product_routes import SkuPath
+from service.catalogue.deps import SkuPath
 from service.core.db import session_scope
 from service.core.deps import READ, ReadSession
 from service.core.errors import NotFound

@@ -8,7 +8,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from models.checks import SIGNIFICANCE, VIF_LIMIT, WEAK_INSTRUMENT_F
+from models import SIGNIFICANCE, VIF_LIMIT, WEAK_INSTRUMENT_F
 
 
 @dataclass(frozen=True)
