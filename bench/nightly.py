@@ -36,7 +36,7 @@ sys.path.insert(0, str(ROOT))
 from models import simulate_product  # noqa: E402
 from service.catalogue import products  # noqa: E402
 from service.catalogue.ingest import covariates_json  # noqa: E402
-from service.catalogue.observations import ObservationWriter  # noqa: E402
+from service.catalogue.observations import observation_writer  # noqa: E402
 from service.core import migrate  # noqa: E402
 from service.core.db import make_engine, make_session_factory, session_scope  # noqa: E402
 from service.core.settings import Settings  # noqa: E402
@@ -70,7 +70,7 @@ def load(settings: Settings, n_products: int) -> int:
     engine = make_engine(settings)
     rows = 0
     with session_scope(make_session_factory(engine, writer=True, bulk_load=True)) as session:
-        writer = ObservationWriter(session)
+        writer = observation_writer(session)
         for start in range(0, n_products, 1000):
             batch = [
                 simulate_product(seed, elasticity=-1.2 - (seed % 20) / 10, sku=f"SKU-{seed:06d}")

@@ -23,7 +23,7 @@ import pyarrow.csv as pacsv
 from sqlalchemy.orm import Session
 
 from service.catalogue import products
-from service.catalogue.observations import ObservationColumns, ObservationWriter
+from service.catalogue.observations import ObservationColumns, observation_writer
 from service.core.schemas import SKU_PATTERN
 
 if TYPE_CHECKING:
@@ -57,7 +57,7 @@ def import_clean_csv(
     if not _quotes_balanced(raw):
         return None
     state = _State(sku_ids={}, sku_codes={}, created=[], keys=[])
-    writer = ObservationWriter(session)
+    writer = observation_writer(session)
     rows = 0
     try:
         for batch in _batches(raw, layout):

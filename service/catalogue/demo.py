@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from models import Catalogue, ScenarioProduct, generate_catalogue
 from service.catalogue import products
 from service.catalogue.ingest import covariates_json
-from service.catalogue.observations import ObservationTuple, ObservationWriter
+from service.catalogue.observations import ObservationTuple, observation_writer
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.settings import Settings
 
@@ -79,7 +79,7 @@ def load_catalogue(settings: Settings, catalogue: Catalogue) -> DemoSummary:
     engine = make_engine(settings)
     try:
         with session_scope(make_session_factory(engine, writer=True)) as session:
-            writer = ObservationWriter(session)
+            writer = observation_writer(session)
             for product in catalogue.products:
                 row, _ = products.put(session, sku=product.sku, fields=product_fields(product))
                 writer.write(observation_rows(row.id, product))

@@ -24,7 +24,7 @@ import numpy as np
 from sqlalchemy.orm import Session
 
 from service.catalogue import csv_columns, products
-from service.catalogue.observations import ObservationTuple, ObservationWriter
+from service.catalogue.observations import ObservationTuple, observation_writer
 from service.catalogue.schemas import ObservationIn
 from service.core.errors import ErrorItem, InvalidInput
 from service.core.schemas import NAME_PATTERN, SKU_PATTERN
@@ -82,7 +82,7 @@ def upsert_batch(
         seen.setdefault(obs.period, index)
     if problems:
         raise InvalidInput("the batch repeats a period; nothing was written", errors=problems)
-    writer = ObservationWriter(session)
+    writer = observation_writer(session)
     writer.write(
         [
             (
@@ -237,7 +237,7 @@ def _stream_rows(
     chunk_rows: int,
     raw: IO[bytes],
 ) -> UpsertOutcome:
-    writer = ObservationWriter(session)
+    writer = observation_writer(session)
     sku_ids: dict[str, int] = {}
     sku_codes: dict[str, int] = {}
     unknown_reported: set[str] = set()

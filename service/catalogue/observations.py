@@ -81,40 +81,35 @@ class ObservationColumns:
         return out.getvalue()
 
 
-class ObservationWriter:
-    """Upserts observations in chunks within the caller's transaction and counts outcomes.
-
-    On SQLite the transaction holds the write lock from BEGIN IMMEDIATE, so the change in
-    the table's row count is exactly the number of new periods. On PostgreSQL a
-    transaction-scoped advisory lock plays the same part for observation writers.
-    """
+class _Writer:
+    """What both databases' writers share: counting rows and marking changed products."""
 
     def __init__(self, session: Session) -> None:
         self._conn = session.connection()
-        self._dialect = self._conn.dialect.name
         self._driver: Any = self._conn.connection.driver_connection
         assert self._driver is not None
         self.rows = 0
-        self._inserted = 0
-        self._count_before = 0
-        if self._dialect == "sqlite":
-            self._count_before = self._table_count()
-        else:
-            with self._driver.cursor() as cur:
-                # Observation writers queue, as SQLite's BEGIN IMMEDIATE makes them do:
-                # chunked upserts of overlapping periods taken in different orders would
-                # deadlock, and imports creating the same new sku would collide. The lock
-                # is per schema and ends with the transaction.
-                cur.execute(
-                    "SELECT pg_advisory_xact_lock(hashtext(current_schema()), "
-                    "hashtext('marginal.observations'))"
-                )
-                cur.execute(
-                    "CREATE TEMP TABLE IF NOT EXISTS observation_stage ("
-                    "product_id integer, period date, price double precision, "
-                    "units double precision, unit_cost double precision, in_stock boolean, "
-                    "covariates jsonb) ON COMMIT DELETE ROWS"
-                )
+
+    def _mark_changed(self, product_ids: set[int]) -> None:
+        """Record that these products' histories changed (incremental refits read it)."""
+        ids = sorted(product_ids)
+        now = utcnow()
+        for start in range(0, len(ids), 500):
+            self._conn.execute(
+                update(ProductRow)
+                .where(ProductRow.id.in_(ids[start : start + 500]))
+                .values(history_changed_at=now)
+            )
+
+
+class SqliteObservationWriter(_Writer):
+    """``executemany`` with ``ON CONFLICT``. The transaction holds the write lock from
+    BEGIN IMMEDIATE, so the change in the table's row count is exactly the number of new
+    periods."""
+
+    def __init__(self, session: Session) -> None:
+        super().__init__(session)
+        self._count_before = self._table_count()
 
     def _table_count(self) -> int:
         cur = self._driver.cursor()
@@ -129,13 +124,51 @@ class ObservationWriter:
             return
         self.rows += len(rows)
         self._mark_changed({row[0] for row in rows})
-        if self._dialect == "sqlite":
-            self._driver.executemany(
-                f"INSERT INTO observations ({_COLUMNS}) VALUES (?, ?, ?, ?, ?, ?, ?) "
-                f"ON CONFLICT (product_id, period) DO UPDATE SET {_UPDATE}",
-                rows,
+        self._driver.executemany(
+            f"INSERT INTO observations ({_COLUMNS}) VALUES (?, ?, ?, ?, ?, ?, ?) "
+            f"ON CONFLICT (product_id, period) DO UPDATE SET {_UPDATE}",
+            rows,
+        )
+
+    def write_columns(self, block: ObservationColumns) -> None:
+        """Like :meth:`write`, for a block checked column by column."""
+        if len(block.period):
+            self.write(block.tuples())  # executemany binds tuples
+
+    def finish(self) -> tuple[int, int]:
+        """(inserted, updated) for everything written so far."""
+        inserted = self._table_count() - self._count_before
+        return inserted, self.rows - inserted
+
+
+class PostgresObservationWriter(_Writer):
+    """``COPY`` into a staging table, then one ``INSERT .. SELECT .. ON CONFLICT`` that
+    reports inserts. A transaction-scoped advisory lock makes observation writers queue."""
+
+    def __init__(self, session: Session) -> None:
+        super().__init__(session)
+        self._inserted = 0
+        with self._driver.cursor() as cur:
+            # Observation writers queue, as SQLite's BEGIN IMMEDIATE makes them do:
+            # chunked upserts of overlapping periods taken in different orders would
+            # deadlock, and imports creating the same new sku would collide. The lock
+            # is per schema and ends with the transaction.
+            cur.execute(
+                "SELECT pg_advisory_xact_lock(hashtext(current_schema()), "
+                "hashtext('marginal.observations'))"
             )
+            cur.execute(
+                "CREATE TEMP TABLE IF NOT EXISTS observation_stage ("
+                "product_id integer, period date, price double precision, "
+                "units double precision, unit_cost double precision, in_stock boolean, "
+                "covariates jsonb) ON COMMIT DELETE ROWS"
+            )
+
+    def write(self, rows: Sequence[ObservationTuple]) -> None:
+        if not rows:
             return
+        self.rows += len(rows)
+        self._mark_changed({row[0] for row in rows})
         with self._driver.cursor() as cur:
             with cur.copy(f"COPY observation_stage ({_COLUMNS}) FROM STDIN") as copy:
                 for row in rows:
@@ -145,9 +178,6 @@ class ObservationWriter:
     def write_columns(self, block: ObservationColumns) -> None:
         """Like :meth:`write`, for a block checked column by column."""
         if not len(block.period):
-            return
-        if self._dialect == "sqlite":
-            self.write(block.tuples())  # executemany binds tuples
             return
         self.rows += len(block.period)
         self._mark_changed(set(np.unique(block.product_id).tolist()))
@@ -168,24 +198,20 @@ class ObservationWriter:
         self._inserted += int(cur.fetchone()[0])
         cur.execute("TRUNCATE observation_stage")
 
-    def _mark_changed(self, product_ids: set[int]) -> None:
-        """Record that these products' histories changed (incremental refits read it)."""
-        ids = sorted(product_ids)
-        now = utcnow()
-        for start in range(0, len(ids), 500):
-            self._conn.execute(
-                update(ProductRow)
-                .where(ProductRow.id.in_(ids[start : start + 500]))
-                .values(history_changed_at=now)
-            )
-
     def finish(self) -> tuple[int, int]:
         """(inserted, updated) for everything written so far."""
-        if self._dialect == "sqlite":
-            inserted = self._table_count() - self._count_before
-        else:
-            inserted = self._inserted
-        return inserted, self.rows - inserted
+        return self._inserted, self.rows - self._inserted
+
+
+ObservationWriter = SqliteObservationWriter | PostgresObservationWriter
+
+
+def observation_writer(session: Session) -> ObservationWriter:
+    """Upserts observations in chunks within the session's transaction and counts
+    outcomes, the fastest correct way for the session's database."""
+    if session.connection().dialect.name == "postgresql":
+        return PostgresObservationWriter(session)
+    return SqliteObservationWriter(session)
 
 
 def list_range(

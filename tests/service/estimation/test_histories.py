@@ -27,11 +27,11 @@ from sqlalchemy import make_url
 
 from models import History
 from service.catalogue import products
-from service.catalogue.observations import ObservationTuple, ObservationWriter
+from service.catalogue.observations import ObservationTuple, observation_writer
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.estimation.histories import ProductRef, load_histories
 from service.estimation.history_reader import HistoryReader, ReaderFailed
-from tests.conftest import Database
+from tests.plugins.storage import Database
 
 pytestmark = pytest.mark.storage
 
@@ -74,7 +74,7 @@ def stored(db: Database) -> Iterator[tuple[Database, list[ProductRef]]]:
     engine = make_engine(db.settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
         ids = products.create_bare(session, skus=["H-FULL", "H-EMPTY", "H-SPARSE", "H-ODD"])
-        writer = ObservationWriter(session)
+        writer = observation_writer(session)
         rows: list[ObservationTuple] = []
         for i, (week, doc) in enumerate(zip(WEEKS, _documents(), strict=True)):
             rows.append((ids["H-FULL"], week, 4.0 + i / 8, 10.0 + i, 2.0, True, doc))
@@ -216,7 +216,7 @@ def test_sqlite_reads_a_value_that_is_not_a_number_as_before(db: Database) -> No
     engine = make_engine(db.settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
         ids = products.create_bare(session, skus=["H-BOOL"])
-        ObservationWriter(session).write(
+        observation_writer(session).write(
             [
                 (ids["H-BOOL"], WEEKS[0], 4.0, 9.0, None, True, '{"a":true,"b":2.5}'),
                 (ids["H-BOOL"], WEEKS[1], 4.5, 8.0, None, True, '{"a":false,"b":[1]}'),
