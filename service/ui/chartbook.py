@@ -9,7 +9,7 @@ from typing import TYPE_CHECKING
 
 from sqlalchemy.orm import Session
 
-from service.ui import chartdata, records
+from service.ui import chartdata, chartdata_demand, chartdata_fit_time, chartdata_money, records
 from service.ui.cache import ChartKey, SvgCache, chart_cache
 from service.ui.chartdata import KINDS
 from service.ui.records import ProductInfo
@@ -44,10 +44,10 @@ def draw(subject: chartdata.Subject, kind: str) -> Chart:
     from service.ui import charts
 
     if kind == "demand":
-        return charts.demand_chart(chartdata.demand_inputs(subject))
+        return charts.demand_chart(chartdata_demand.demand_inputs(subject))
     if kind == "money":
-        return charts.money_chart(chartdata.money_inputs(subject))
-    return charts.fit_time_chart(chartdata.fit_time_inputs(subject))
+        return charts.money_chart(chartdata_money.money_inputs(subject))
+    return charts.fit_time_chart(chartdata_fit_time.fit_time_inputs(subject))
 
 
 def draw_all(subject: chartdata.Subject) -> dict[str, Chart]:
@@ -59,10 +59,10 @@ def describe(subject: chartdata.Subject, kind: str) -> tuple[str, tuple[str, ...
     from service.ui import charts
 
     if kind == "demand":
-        return charts.demand_text(chartdata.demand_inputs(subject))
+        return charts.demand_text(chartdata_demand.demand_inputs(subject))
     if kind == "money":
-        return charts.money_text(chartdata.money_inputs(subject))
-    return charts.fit_time_text(chartdata.fit_time_inputs(subject))
+        return charts.money_text(chartdata_money.money_inputs(subject))
+    return charts.fit_time_text(chartdata_fit_time.fit_time_inputs(subject))
 
 
 def cached_svg(

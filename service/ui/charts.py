@@ -40,7 +40,9 @@ from matplotlib.figure import Figure  # noqa: E402
 from matplotlib.ticker import MaxNLocator  # noqa: E402
 
 from service.ui import words  # noqa: E402
-from service.ui.chartdata import DemandInputs, FitTimeInputs, MoneyInputs  # noqa: E402
+from service.ui.chartdata_demand import DemandInputs  # noqa: E402
+from service.ui.chartdata_fit_time import FitTimeInputs  # noqa: E402
+from service.ui.chartdata_money import MoneyInputs  # noqa: E402
 
 # Our palette: ink and paper with a few earthy accents.
 INK = "#24313d"

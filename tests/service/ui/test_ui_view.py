@@ -28,7 +28,7 @@ from service.access.view_session import COOKIE_NAME, session_secret
 from service.core.app import create_app
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.settings import Settings
-from service.ui import chartbook, chartdata, records
+from service.ui import chartbook, chartdata_fit_time, records
 from tests.conftest import Database, make_key
 from tests.ui_support import (
     NO_HISTORY,
@@ -181,7 +181,7 @@ def test_fit_over_time_reproduces_the_fitted_values_and_r_squared(shop: Shop) ->
     with session_scope(make_session_factory(engine, writer=False)) as session:
         subject = chartbook.subject(session, records.product(session, "TEA-003"))
     engine.dispose()
-    data = chartdata.fit_time_inputs(subject)
+    data = chartdata_fit_time.fit_time_inputs(subject)
     fit, history = subject.fit.fit, subject.history  # type: ignore[union-attr]
     assert fit.form == "linear" and data.fitted is not None and history is not None
     # Independent path: the library's own prediction at each week's recorded values.
