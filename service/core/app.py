@@ -8,6 +8,7 @@ import time
 import uuid
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from importlib import metadata
 
 from fastapi import FastAPI
 from fastapi.middleware.cors import CORSMiddleware
@@ -66,7 +67,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     app = FastAPI(
         title="Marginal",
-        version="0.1.0",
+        version=metadata.version("marginal"),
         description=API_DESCRIPTION,
         lifespan=lifespan,
         license_info={"name": "Apache-2.0"},
