@@ -38,7 +38,8 @@ from typing import Any
 import numpy as np
 import statsmodels.api as sm
 
-from models import DemandFit, History, ModelSpec, fit_demand, fit_many, fit_ols_stack  # noqa: E402
+from models import DemandFit, History, ModelSpec, fit_demand, fit_many  # noqa: E402
+from models.ols import fit_ols_stack  # noqa: E402
 from models.result import clean  # noqa: E402
 
 N_PERIODS = 104

@@ -1,15 +1,52 @@
 """Marginal's numerical library: demand models, fitting, elasticities, optimisation.
 
-The public surface is re-exported here; submodules are implementation detail.
+Everything a user of the library needs is exported here; submodules are implementation
+detail. The surface, by task:
+
+* data and specification: :class:`History`, :class:`ModelSpec`, :class:`Term`,
+  :data:`UNIT_COST`;
+* fitting: :func:`fit_demand`, :func:`fit_many`, :func:`pool_family` and the fit record
+  (:class:`DemandFit`, :class:`Coefficient`, :class:`Quality`, :class:`Diagnostics`,
+  :class:`DataWindow`, :class:`FitWarning`, :class:`FitFailure`,
+  :class:`PooledElasticity`) with the thresholds of its warnings (:data:`SIGNIFICANCE`,
+  :data:`VIF_LIMIT`, :data:`WEAK_INSTRUMENT_F`);
+* reading a fit: :func:`elasticities`, :func:`predict`, :func:`price_range_warning`,
+  :func:`fitted_units`, :func:`fitted_periods`;
+* pricing: :func:`optimal_price`, :func:`optimal_family_prices`,
+  :class:`PriceConstraints`, :class:`DemandCurve` and the recommendation records;
+* errors: every exception of the library (:mod:`models.errors`);
+* the invented tea shop with known true demand: :func:`generate_catalogue`,
+  :func:`simulate_product`, :data:`COVARIATES`, :data:`LOG_COVARIATES`.
+
+Examples
+--------
+>>> import models
+>>> product = models.generate_catalogue(7).product("TEA-004")
+>>> spec = models.ModelSpec(covariates=models.COVARIATES, log_covariates=models.LOG_COVARIATES)
+>>> fit = models.fit_demand(product.history, spec)
+>>> answer = models.optimal_price(fit, unit_cost=product.unit_cost)
+>>> fit.price_range[0] * 0.9 <= answer.recommended.price <= fit.price_range[1] * 1.1
+True
 """
 
+from models.checks import SIGNIFICANCE, VIF_LIMIT, WEAK_INSTRUMENT_F
 from models.design import Term
 from models.elasticity import ElasticityReport, ElasticityRow, elasticities
-from models.errors import InsufficientDataError, SpecError, UnusableDataError
+from models.errors import (
+    InfeasibleConstraintsError,
+    InsufficientDataError,
+    InvalidConstraintsError,
+    MissingUnitCostError,
+    PricingInputError,
+    SpecError,
+    UnboundedObjectiveError,
+    UnusableDataError,
+    WrongSignError,
+)
 from models.fit import fit_demand, fit_many
 from models.fitted import fitted_periods, fitted_units
+from models.guards import price_range_warning
 from models.history import History
-from models.ols import OLSStack, fit_ols_stack, newey_west_lags
 from models.pooling import pool_family
 from models.predict import Prediction, predict
 from models.pricing import (
@@ -17,17 +54,11 @@ from models.pricing import (
     DemandCurve,
     FamilyRecommendation,
     FamilyTotal,
-    InfeasibleConstraintsError,
-    InvalidConstraintsError,
-    MissingUnitCostError,
     PriceConstraints,
     PricePoint,
     PriceRecommendation,
     PriceUncertainty,
-    PricingInputError,
     TotalFigures,
-    UnboundedObjectiveError,
-    WrongSignError,
     optimal_family_prices,
     optimal_price,
 )
@@ -42,15 +73,18 @@ from models.result import (
     Quality,
 )
 from models.scenario import (
+    COVARIATES,
+    LOG_COVARIATES,
     Catalogue,
     ScenarioProduct,
     TrueDemand,
     generate_catalogue,
     simulate_product,
 )
-from models.spec import ModelSpec
+from models.spec import UNIT_COST, ModelSpec
 
 __all__ = [
+    "COVARIATES",
     "Catalogue",
     "Coefficient",
     "CurvePoint",
@@ -68,9 +102,9 @@ __all__ = [
     "InfeasibleConstraintsError",
     "InsufficientDataError",
     "InvalidConstraintsError",
+    "LOG_COVARIATES",
     "MissingUnitCostError",
     "ModelSpec",
-    "OLSStack",
     "PooledElasticity",
     "Prediction",
     "PriceConstraints",
@@ -79,25 +113,28 @@ __all__ = [
     "PriceUncertainty",
     "PricingInputError",
     "Quality",
+    "SIGNIFICANCE",
     "ScenarioProduct",
     "SpecError",
     "Term",
     "TotalFigures",
     "TrueDemand",
+    "UNIT_COST",
     "UnboundedObjectiveError",
     "UnusableDataError",
+    "VIF_LIMIT",
+    "WEAK_INSTRUMENT_F",
     "WrongSignError",
     "elasticities",
     "fit_demand",
     "fit_many",
-    "fit_ols_stack",
     "fitted_periods",
     "fitted_units",
     "generate_catalogue",
-    "newey_west_lags",
     "optimal_family_prices",
     "optimal_price",
     "pool_family",
     "predict",
+    "price_range_warning",
     "simulate_product",
 ]

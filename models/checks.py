@@ -42,10 +42,13 @@ WARNING_CODES: Final = (
 )
 
 SIGNIFICANCE: Final = 0.05
+"""Level below which a p-value counts as significant (own price, diagnostic tests)."""
 MIN_OBS_PER_TERM: Final = 10  # common practice, no source
 MIN_PRICE_CV: Final = 0.02  # rule of thumb (ours): below a 2% coefficient of variation
 VIF_LIMIT: Final = 10.0  # common practice (often attributed to Marquardt 1970)
+"""Variance inflation factor above which a term is flagged as collinear with others."""
 WEAK_INSTRUMENT_F: Final = 10.0  # Staiger & Stock (1997) rule of thumb
+"""First-stage F below which the instruments of a two-stage fit count as weak."""
 
 
 def price_variation(price: FloatArray) -> float:
@@ -158,8 +161,7 @@ def warnings_from_figures(
         found.append(
             FitWarning(
                 MISSING_VALUES_DROPPED,
-                f"{n_missing} periods were left out because a value the model needs "
-                "is missing.",
+                f"{n_missing} periods were left out because a value the model needs is missing.",
             )
         )
     if dropped:

@@ -192,6 +192,18 @@ class DemandFit:
         Duan's smearing factor ``mean(exp(residual))`` for the log forms.
     pooled : PooledElasticity or None
         Family-pooled own-price elasticity when ``pooling="family"``.
+
+    Examples
+    --------
+    >>> from models import COVARIATES, LOG_COVARIATES, ModelSpec, fit_demand, simulate_product
+    >>> product = simulate_product(1, elasticity=-2.0, price_noise=0.15)
+    >>> spec = ModelSpec(covariates=COVARIATES, log_covariates=LOG_COVARIATES)
+    >>> fit = fit_demand(product.history, spec)
+    >>> fit.form, fit.term_names[:3]
+    ('log-log', ('intercept', 'ln(price)', 'ln(rival_price)'))
+    >>> row = fit.own_price
+    >>> row.term, round(row.estimate, 2), row.ci_low < -2.0 < row.ci_high
+    ('ln(price)', -1.75, True)
     """
 
     sku: str

@@ -19,6 +19,7 @@ SEASONALITIES: Final = ("none", "month", "fourier")
 STANDARD_ERRORS: Final = ("classical", "hc3", "hac")
 POOLINGS: Final = ("none", "family")
 UNIT_COST: Final = "unit_cost"
+"""The name under which a history's unit cost serves as an instrument for the own price."""
 
 
 @dataclass(frozen=True)

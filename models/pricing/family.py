@@ -82,6 +82,22 @@ def optimal_family_prices(
     UnboundedObjectiveError, PricingInputError
         As in :func:`models.optimal_price`; constraint names carry the sku
         (``"TEA-004.max_price"``) or name the rule (``"order:TEA-004<=TEA-005"``).
+
+    Examples
+    --------
+    Two tins priced together; alone the first would sell dearer than the second, so
+    the ladder rule "first no dearer than second" binds and prices them alike:
+
+    >>> from models import ModelSpec, fit_demand, simulate_product
+    >>> tins = [simulate_product(seed, elasticity=-2.5, sku=f"TEA-{seed}") for seed in (1, 2)]
+    >>> fits = {p.sku: fit_demand(p.history, ModelSpec()) for p in tins}
+    >>> costs = {p.sku: p.unit_cost for p in tins}
+    >>> alone = optimal_family_prices(fits, unit_costs=costs)
+    >>> [(r.sku, round(r.recommended.price, 2)) for r in alone.products]
+    [('TEA-1', 8.84), ('TEA-2', 7.63)]
+    >>> ladder = optimal_family_prices(fits, unit_costs=costs, order=[("TEA-1", "TEA-2")])
+    >>> [round(r.recommended.price, 2) for r in ladder.products], ladder.binding_constraints
+    ([8.01, 8.01], ('order:TEA-1<=TEA-2',))
     """
     check_objective(objective)
     check_draws(uncertainty_draws)

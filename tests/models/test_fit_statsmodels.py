@@ -14,9 +14,9 @@ from statsmodels.stats.diagnostic import het_breuschpagan
 from statsmodels.stats.outliers_influence import variance_inflation_factor
 from statsmodels.stats.stattools import durbin_watson, jarque_bera
 
-from models import DemandFit, History, ModelSpec, fit_demand, fit_many, fit_ols_stack
+from models import DemandFit, History, ModelSpec, fit_demand, fit_many
 from models.estimate import fit_poisson
-from models.ols import newey_west_lags
+from models.ols import fit_ols_stack, newey_west_lags
 
 RTOL = 1e-8
 

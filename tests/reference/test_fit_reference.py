@@ -14,7 +14,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models import History, ModelSpec, fit_demand, fit_many, fit_ols_stack
+from models import History, ModelSpec, fit_demand, fit_many
+from models.ols import fit_ols_stack
 from tests.reference.reader import load
 
 
