@@ -41,13 +41,13 @@ def subject(session: Session, product: ProductInfo) -> chartdata.Subject:
 
 
 def draw(subject: chartdata.Subject, kind: str) -> Chart:
-    from service.ui import charts
+    from service.ui import charts_demand, charts_fit_time, charts_money
 
     if kind == "demand":
-        return charts.demand_chart(chartdata_demand.demand_inputs(subject))
+        return charts_demand.demand_chart(chartdata_demand.demand_inputs(subject))
     if kind == "money":
-        return charts.money_chart(chartdata_money.money_inputs(subject))
-    return charts.fit_time_chart(chartdata_fit_time.fit_time_inputs(subject))
+        return charts_money.money_chart(chartdata_money.money_inputs(subject))
+    return charts_fit_time.fit_time_chart(chartdata_fit_time.fit_time_inputs(subject))
 
 
 def draw_all(subject: chartdata.Subject) -> dict[str, Chart]:
@@ -56,13 +56,13 @@ def draw_all(subject: chartdata.Subject) -> dict[str, Chart]:
 
 def describe(subject: chartdata.Subject, kind: str) -> tuple[str, tuple[str, ...]]:
     """A chart's title and summary, without drawing it (for pages that link the SVG)."""
-    from service.ui import charts
+    from service.ui import charts_demand, charts_fit_time, charts_money
 
     if kind == "demand":
-        return charts.demand_text(chartdata_demand.demand_inputs(subject))
+        return charts_demand.demand_text(chartdata_demand.demand_inputs(subject))
     if kind == "money":
-        return charts.money_text(chartdata_money.money_inputs(subject))
-    return charts.fit_time_text(chartdata_fit_time.fit_time_inputs(subject))
+        return charts_money.money_text(chartdata_money.money_inputs(subject))
+    return charts_fit_time.fit_time_text(chartdata_fit_time.fit_time_inputs(subject))
 
 
 def cached_svg(
