@@ -14,7 +14,7 @@ from __future__ import annotations
 import datetime as dt
 import re
 from dataclasses import dataclass
-from typing import IO, TYPE_CHECKING
+from typing import IO
 
 import numpy as np
 import pyarrow as pa
@@ -23,11 +23,11 @@ import pyarrow.csv as pacsv
 from sqlalchemy.orm import Session
 
 from service.catalogue import products
+from service.catalogue.csv_cells import BAD_FLAG, in_stock_value
+from service.catalogue.csv_layout import Layout
 from service.catalogue.observations import ObservationColumns, observation_writer
+from service.catalogue.upsert_outcome import UpsertOutcome
 from service.core.schemas import SKU_PATTERN
-
-if TYPE_CHECKING:
-    from service.catalogue.ingest import UpsertOutcome, _Layout
 
 # About 20,000 rows of a typical file a block: batches big enough to amortise the
 # per-batch work, small enough to keep memory flat however long the file is.
@@ -48,12 +48,10 @@ class _State:
 
 
 def import_clean_csv(
-    session: Session, raw: IO[bytes], layout: _Layout, *, create_products: bool
+    session: Session, raw: IO[bytes], layout: Layout, *, create_products: bool
 ) -> UpsertOutcome | None:
     """Import a clean file (header included) in the caller's transaction, or return
     None, leaving partial writes for the caller to roll back, when it is not clean."""
-    from service.catalogue.ingest import UpsertOutcome
-
     if not _quotes_balanced(raw):
         return None
     state = _State(sku_ids={}, sku_codes={}, created=[], keys=[])
@@ -92,7 +90,7 @@ def _quotes_balanced(raw: IO[bytes]) -> bool:
     return count % 2 == 0
 
 
-def _batches(raw: IO[bytes], layout: _Layout) -> pacsv.CSVStreamingReader:
+def _batches(raw: IO[bytes], layout: Layout) -> pacsv.CSVStreamingReader:
     names = [f"c{i}" for i in range(layout.width)]
     floats = [layout.price, layout.units, *(i for i, _ in layout.covariates)]
     if layout.unit_cost is not None:
@@ -118,7 +116,7 @@ def _batches(raw: IO[bytes], layout: _Layout) -> pacsv.CSVStreamingReader:
 
 def _checked(
     batch: pa.RecordBatch,
-    layout: _Layout,
+    layout: Layout,
     session: Session,
     state: _State,
     create_products: bool,
@@ -217,8 +215,6 @@ def _optional(column: pa.Array) -> list[float | None]:
 
 
 def _flags(column: pa.Array) -> list[bool | None]:
-    from service.catalogue.ingest import BAD_FLAG, in_stock_value
-
     words, index = _distinct(column)
     meaning = [in_stock_value(word) for word in words]
     if any(value is BAD_FLAG for value in meaning):
@@ -226,7 +222,7 @@ def _flags(column: pa.Array) -> list[bool | None]:
     return np.array(meaning, dtype=object)[index].tolist()  # type: ignore[no-any-return]
 
 
-def _covariates(batch: pa.RecordBatch, layout: _Layout) -> pa.Array | None:
+def _covariates(batch: pa.RecordBatch, layout: Layout) -> pa.Array | None:
     """Each row's covariates as compact JSON text with the names in order, built in C++.
 
     Arrow writes a double in its shortest round-trip form ("0", "1.0293", "1e+20"),

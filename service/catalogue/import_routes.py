@@ -10,6 +10,7 @@ from starlette.concurrency import run_in_threadpool
 
 from service.catalogue import ingest
 from service.catalogue.schemas import ImportResult
+from service.catalogue.upsert_outcome import UpsertOutcome
 from service.core.db import session_scope
 from service.core.deps import WRITE, BulkSessions, SettingsDep
 from service.core.errors import UnsupportedMediaType
@@ -61,7 +62,7 @@ async def import_observations(
             spool.write(chunk)
         spool.seek(0)
 
-        def run() -> ingest.UpsertOutcome:
+        def run() -> UpsertOutcome:
             with session_scope(bulk) as session:
                 return ingest.import_csv(
                     session,

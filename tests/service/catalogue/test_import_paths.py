@@ -11,7 +11,8 @@ import pytest
 import sqlalchemy as sa
 
 from service.catalogue import csv_columns
-from service.catalogue.ingest import UpsertOutcome, import_csv
+from service.catalogue.ingest import import_csv
+from service.catalogue.upsert_outcome import UpsertOutcome
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.errors import InvalidInput
 from tests.conftest import Database
