@@ -23,7 +23,7 @@ from models import DemandFit, FitFailure, History, ModelSpec, fit_demand, fit_ma
 from models.batch import fit_stacked
 from models.result import _PLAIN_NUMBERS as PLAIN_NOTE
 from models.result import Coefficient, Quality, build_records, clean
-from tests.models.test_fit_warnings import SPEC, clean_history
+from tests.plugins.fit_cases import SPEC, clean_history
 
 RTOL = 1e-12
 

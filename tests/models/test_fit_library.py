@@ -24,7 +24,7 @@ from models import (
     pool_family,
     predict,
 )
-from tests.models.test_fit_warnings import SPEC, clean_history
+from tests.plugins.fit_cases import SPEC, clean_history
 
 
 def test_all_is_sorted_and_complete() -> None:

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from models import DemandCurve, PriceConstraints, optimal_price
-from tests.pricing_support import exact_fit
+from tests.plugins.pricing_cases import exact_fit
 
 REL = 1e-6
 OPEN = PriceConstraints(allow_extrapolation=True, min_price=1.0, max_price=200.0)

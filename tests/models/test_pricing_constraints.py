@@ -1,7 +1,7 @@
 """Constrained single-product optima against brute-force searches.
 
 Fits are estimated on simulated tea-shop data (noisy, with covariates); the brute
-force evaluates the fitted demand independently (tests.pricing_support) on a grid
+force evaluates the fitted demand independently (tests.plugins.pricing_cases) on a grid
 of 400,001 prices and keeps the allowed ones. The optimiser must match it to the grid's
 resolution and never do worse.
 """
@@ -31,7 +31,7 @@ from models import (
     simulate_product,
 )
 from models.scenario import COVARIATES, LOG_COVARIATES
-from tests.pricing_support import brute_force, check_against_predict, expected_units
+from tests.plugins.pricing_cases import brute_force, check_against_predict, expected_units
 
 FORMS = ("log-log", "semi-log", "linear", "poisson")
 

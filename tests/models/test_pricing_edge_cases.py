@@ -17,7 +17,7 @@ from models import (
     optimal_price,
 )
 from models.guards import EXTRAPOLATION
-from tests.pricing_support import exact_fit
+from tests.plugins.pricing_cases import exact_fit
 
 PRICES = np.linspace(8.0, 16.0, 40)  # observed range 8-16, guard 7.2-17.6
 

@@ -1,7 +1,7 @@
 """Joint family pricing against brute-force grid searches, ladder rules and edge cases.
 
 Families are fitted on exact data from known cross-price demand curves; the brute force
-evaluates the fitted equations independently (tests.pricing_support) on a grid over
+evaluates the fitted equations independently (tests.plugins.pricing_cases) on a grid over
 the allowed box and keeps the allowed points.
 """
 
@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import json
 from collections.abc import Callable, Mapping
-from functools import cache
 
 import numpy as np
 import pytest
@@ -28,54 +27,15 @@ from models import (
     optimal_price,
 )
 from models.scenario import COVARIATES, LOG_COVARIATES
-from tests.pricing_support import exact_fit, expected_units
-
-N = 60
-
-
-def _prices(seed: int, low: float, high: float) -> np.ndarray:
-    return np.random.default_rng(seed).uniform(low, high, N)
-
-
-@cache
-def two_linear() -> dict[str, DemandFit]:
-    """Linear substitutes with a concave joint profit."""
-    pa, pb = _prices(1, 8.0, 14.0), _prices(2, 9.0, 15.0)
-    qa = 200.0 - 12.0 * pa + 4.0 * pb
-    qb = 180.0 - 10.0 * pb + 5.0 * pa
-    return {
-        "A": exact_fit("A", "linear", pa, qa, cross_prices={"B": pb}),
-        "B": exact_fit("B", "linear", pb, qb, cross_prices={"A": pa}),
-    }
-
-
-@cache
-def two_power() -> dict[str, DemandFit]:
-    """Constant-elasticity substitutes (log-log with cross terms)."""
-    pa, pb = _prices(3, 8.0, 14.0), _prices(4, 9.0, 16.0)
-    qa = np.exp(7.0 - 2.5 * np.log(pa) + 0.6 * np.log(pb))
-    qb = np.exp(7.5 - 3.0 * np.log(pb) + 0.4 * np.log(pa))
-    return {
-        "A": exact_fit("A", "log-log", pa, qa, cross_prices={"B": pb}),
-        "B": exact_fit("B", "log-log", pb, qb, cross_prices={"A": pa}),
-    }
-
-
-@cache
-def three_mixed() -> dict[str, DemandFit]:
-    """Three forms, substitutes and one complement."""
-    pa, pb, pc = _prices(5, 6.0, 10.0), _prices(6, 8.0, 12.0), _prices(7, 10.0, 16.0)
-    qa = np.exp(6.5 - 2.2 * np.log(pa) + 0.5 * np.log(pb))
-    qb = np.exp(4.5 - 0.3 * pb + 0.05 * pa - 0.04 * pc)
-    qc = 150.0 - 7.0 * pc + 2.0 * pb
-    return {
-        "A": exact_fit("A", "log-log", pa, qa, cross_prices={"B": pb}),
-        "B": exact_fit("B", "semi-log", pb, qb, cross_prices={"A": pa, "C": pc}),
-        "C": exact_fit("C", "linear", pc, qc, cross_prices={"B": pb}),
-    }
-
-
-COSTS = {"A": 4.0, "B": 5.0, "C": 6.0}
+from tests.plugins.pricing_cases import (
+    COSTS,
+    exact_fit,
+    expected_units,
+    family_prices,
+    three_mixed,
+    two_linear,
+    two_power,
+)
 
 
 def family_value(
@@ -303,7 +263,7 @@ def test_family_errors() -> None:
     with pytest.raises(PricingInputError, match="needs every current price"):
         optimal_family_prices(fits, unit_costs=COSTS, max_total_change_pct=5.0)
     wrong = dict(fits)
-    pa = _prices(9, 8.0, 14.0)
+    pa = family_prices(9, 8.0, 14.0)
     wrong["A"] = exact_fit("A", "linear", pa, 20.0 + 3.0 * pa, cross_prices={"B": pa})
     with pytest.raises(WrongSignError) as sign:
         optimal_family_prices(wrong, unit_costs=COSTS)

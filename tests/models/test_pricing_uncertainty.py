@@ -24,8 +24,7 @@ from models import (
 )
 from models.pricing.inputs import coefficient_draws
 from models.scenario import COVARIATES, LOG_COVARIATES
-from tests.models.test_pricing_family import COSTS, three_mixed, two_linear
-from tests.pricing_support import expected_units, with_params
+from tests.plugins.pricing_cases import COSTS, expected_units, three_mixed, two_linear, with_params
 
 N_DRAWS = 40
 

@@ -1,1 +1,1 @@
-"""Reference values with their sources, and a reader for them."""
+"""Tests against published check values; the reference files here carry their sources."""

@@ -16,7 +16,7 @@ import pytest
 
 from models import History, ModelSpec, fit_demand, fit_many
 from models.ols import fit_ols_stack
-from tests.reference.reader import load
+from tests.plugins.reference_data import load
 
 
 def _periods(n: int) -> np.ndarray:

@@ -23,8 +23,8 @@ import sqlalchemy as sa
 
 from service.core.app import create_app
 from service.core.db import make_engine
-from tests.conftest import Database, make_key
-from tests.live_server import serve, strict_json
+from tests.plugins.live_server import serve, strict_json
+from tests.plugins.storage import Database, make_key
 
 pytestmark = pytest.mark.storage
 

@@ -11,7 +11,7 @@ import datetime as dt
 import sqlite3
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable
 from typing import Any
 
 import httpx
@@ -24,8 +24,8 @@ from sqlalchemy.exc import OperationalError
 from service.core.app import create_app
 from service.core.db import make_engine
 from service.core.settings import Settings
-from tests.conftest import POSTGRES_URL, Database, make_key, row_count
-from tests.live_server import TcpProxy, serve, strict_json
+from tests.plugins.live_server import TcpProxy, serve, strict_json
+from tests.plugins.storage import POSTGRES_URL, Database, make_key, row_count
 
 pytestmark = pytest.mark.storage
 
@@ -67,19 +67,19 @@ def stored_prices(settings: Settings, sku: str) -> dict[str, float]:
 
 
 @pytest.fixture
-def proxied(db: Database) -> Iterator[tuple[TcpProxy, Settings]]:
+def proxied(
+    db: Database, tcp_proxy: Callable[[tuple[str, int]], TcpProxy]
+) -> tuple[TcpProxy, Settings]:
     """Settings that reach PostgreSQL only through a proxy the test can stop."""
     if db.backend != "postgresql":
         pytest.skip("SQLite has no server to lose (see the locked-database test)")
     target = sa.make_url(POSTGRES_URL)
-    proxy = TcpProxy((target.host or "127.0.0.1", target.port or 5432))
-    proxy.start()
+    proxy = tcp_proxy((target.host or "127.0.0.1", target.port or 5432))
     url = target.set(host="127.0.0.1", port=proxy.port)
     settings = db.settings.model_copy(
         update={"database_url": url.render_as_string(hide_password=False)}
     )
-    yield proxy, settings
-    proxy.stop()
+    return proxy, settings
 
 
 def test_postgres_outage_gives_503_then_recovers_without_restart(

@@ -26,7 +26,7 @@ from service.core import migrate
 from service.core.app import create_app
 from service.core.settings import Settings
 from service.jobs.worker import JobRunner
-from tests.conftest import make_key
+from tests.plugins.storage import make_key
 
 EXAMPLES = int(os.environ.get("MARGINAL_FUZZ_EXAMPLES", "20"))
 # Invalid data may also be refused for its size (413, before it is parsed): schemathesis's

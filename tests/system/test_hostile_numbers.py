@@ -22,8 +22,8 @@ from httpx import Response
 
 from service.core.db import make_engine
 from service.jobs.worker import JobRunner
-from tests.conftest import Database
-from tests.live_server import strict_json
+from tests.plugins.live_server import strict_json
+from tests.plugins.storage import Database
 
 pytestmark = pytest.mark.storage
 

@@ -12,7 +12,7 @@ from fastapi.testclient import TestClient
 from service.cli import main as cli_main
 from service.core.db import make_engine
 from service.core.settings import Settings
-from tests.conftest import Database, make_key
+from tests.plugins.storage import Database, make_key
 
 pytestmark = pytest.mark.storage
 

@@ -6,7 +6,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.catalogue import demo
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 

@@ -15,7 +15,7 @@ from service.catalogue.ingest import import_csv
 from service.catalogue.upsert_outcome import UpsertOutcome
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.errors import InvalidInput
-from tests.conftest import Database
+from tests.plugins.storage import Database
 
 pytestmark = pytest.mark.storage
 

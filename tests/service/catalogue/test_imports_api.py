@@ -10,7 +10,7 @@ from fastapi.testclient import TestClient
 
 from service.core.app import create_app
 from service.core.settings import Settings
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 

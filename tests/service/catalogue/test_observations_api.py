@@ -7,7 +7,7 @@ from typing import Any
 import pytest
 from fastapi.testclient import TestClient
 
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from fastapi.testclient import TestClient
 
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 

@@ -15,7 +15,7 @@ from fastapi.testclient import TestClient
 
 from service.catalogue import demo
 from service.core import logs
-from tests.conftest import Database
+from tests.plugins.storage import Database
 
 ROOT = Path(__file__).resolve().parent.parent
 

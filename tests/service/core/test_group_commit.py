@@ -13,7 +13,7 @@ from sqlalchemy.orm import Session
 from service.catalogue import products
 from service.core.db import make_engine, make_session_factory
 from service.core.group_commit import GroupWriter
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 

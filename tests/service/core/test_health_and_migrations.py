@@ -14,10 +14,10 @@ from service.core.app import create_app
 from service.core.db import make_engine
 from service.core.settings import Settings
 from service.core.tables import Base
-from tests.conftest import (
+from tests.plugins.storage import (
     BACKENDS,
-    _new_postgres_schema,
     drop_postgres_schema,
+    new_postgres_schema,
 )
 
 
@@ -61,7 +61,7 @@ def test_migrations_up_down_up(backend: str, tmp_path: Path, _postgres_status: s
     if backend == "postgresql":
         if _postgres_status:
             pytest.skip(_postgres_status)
-        settings = _new_postgres_schema()
+        settings = new_postgres_schema()
     else:
         settings = Settings(database_url=f"sqlite:///{tmp_path / 'chain.db'}")
     try:

@@ -33,7 +33,7 @@ from service.estimation.histories import load_history
 from service.estimation.history_reader import HistoryReader
 from service.jobs import queue as jobs
 from service.jobs.worker import JobRunner
-from tests.conftest import Database
+from tests.plugins.storage import Database
 
 pytestmark = pytest.mark.storage
 REL, ABS = 1e-9, 1e-12

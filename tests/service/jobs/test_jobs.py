@@ -19,7 +19,7 @@ from service.core.app import create_app
 from service.core.db import make_engine
 from service.core.settings import Settings
 from service.jobs.worker import JobRunner
-from tests.conftest import Database
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 TRAPS = {"TEA-001": "expected_sign", "TEA-009": "price_variation"}
@@ -296,7 +296,6 @@ def test_reprice_job_recommends_once_per_active_product(
 def test_job_options_are_checked_before_queueing(
     shop: TestClient, headers: dict[str, str], db: Database, body: dict[str, object]
 ) -> None:
-    from tests.conftest import row_count
 
     response = shop.post("/v1/jobs", json=body, headers=headers)
     assert response.status_code == 422

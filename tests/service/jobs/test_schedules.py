@@ -13,7 +13,7 @@ from fastapi.testclient import TestClient
 from service.core.db import make_engine, make_session_factory
 from service.core.settings import Settings
 from service.jobs import schedules
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, make_key, row_count
 
 pytestmark = pytest.mark.storage
 NIGHTLY = {
@@ -63,7 +63,6 @@ def test_bad_schedules(
 
 
 def test_schedules_need_admin(client: TestClient, db: Database) -> None:
-    from tests.conftest import make_key
 
     writer = {"Authorization": f"Bearer {make_key(db.settings, 'read', 'write')}"}
     assert client.put("/v1/schedules/x", json=NIGHTLY, headers=writer).status_code == 403

@@ -11,7 +11,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.catalogue import demo
-from tests.conftest import Database, row_count
+from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
 WEEKS = [(dt.date(2025, 1, 6) + dt.timedelta(weeks=w)).isoformat() for w in range(40)]

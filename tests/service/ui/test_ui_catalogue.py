@@ -5,8 +5,8 @@ The green family holds every state a product can be in: active fits with and wit
 warnings, a rejected fit (TEA-001), a product left unfitted (TEA-008) and one without
 any history (TEA-900). A chart costs about 0.2 s to draw here, so the static report
 covers that family rather than all 41 products; every fitted form is drawn on both
-databases in tests/test_ui_view.py. Runs on SQLite only: drawing and browsing do not
-depend on the database, whose queries are tested on both in tests/test_ui_view.py.
+databases in test_ui_view.py. Runs on SQLite only: drawing and browsing do not
+depend on the database, whose queries are tested on both in test_ui_view.py.
 Screenshots go to MARGINAL_SCREENSHOT_DIR (default ./screenshots).
 """
 
@@ -14,14 +14,13 @@ from __future__ import annotations
 
 import contextlib
 import io
-import os
 import re
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 import sqlalchemy as sa
-from playwright.sync_api import Browser, Page, sync_playwright
+from playwright.sync_api import Browser, Page
 from pydantic import SecretStr
 
 from service.access.view_session import COOKIE_NAME
@@ -30,16 +29,13 @@ from service.core import migrate
 from service.core.app import create_app
 from service.core.db import make_engine
 from service.core.settings import Settings, get_settings
-from tests.conftest import make_key
-from tests.live_server import serve
-from tests.ui_support import (
-    CHROMIUM,
-    CHROMIUM_ARGS,
+from tests.plugins.live_server import serve
+from tests.plugins.storage import make_key
+from tests.plugins.ui_pages import (
     NO_HISTORY,
     assert_clean_svg,
     gids,
     prepare_shop,
-    screenshot_dir,
 )
 
 KINDS = ("demand", "money", "fit-over-time")
@@ -63,19 +59,6 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[Path, str, 
     get_settings.cache_clear()
     assert code == 0, printed.getvalue()
     yield out, printed.getvalue(), settings
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Browser]:
-    """Debian's Chromium driven by Playwright (never a downloaded browser)."""
-    if not Path(CHROMIUM).exists():
-        if os.environ.get("CI"):
-            pytest.fail(f"{CHROMIUM} is missing; .ci/run installs it")
-        pytest.skip(f"{CHROMIUM} is not installed (apt-get install chromium)")
-    with sync_playwright() as playwright:
-        chromium = playwright.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
-        yield chromium
-        chromium.close()
 
 
 def _statuses(settings: Settings) -> dict[str, str]:
@@ -140,7 +123,7 @@ def test_the_report_pages_link_to_files_that_exist(site: tuple[Path, str, Settin
 
 
 def test_the_static_catalogue_sorts_in_the_browser(
-    site: tuple[Path, str, Settings], browser: Browser
+    site: tuple[Path, str, Settings], browser: Browser, screenshots: Path
 ) -> None:
     """The static folder has no server to sort for it: its script does."""
     out, _, _ = site
@@ -155,18 +138,17 @@ def test_the_static_catalogue_sorts_in_the_browser(
     page.wait_for_load_state("load")
     widths = chart_widths(page)
     assert len(widths) == 3 and all(w > 0 for w in widths)
-    page.screenshot(path=str(screenshot_dir() / "static-report-product.png"))
+    page.screenshot(path=str(screenshots / "static-report-product.png"))
     assert errors == []
     page.close()
 
 
 def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
-    site: tuple[Path, str, Settings], browser: Browser
+    site: tuple[Path, str, Settings], browser: Browser, screenshots: Path
 ) -> None:
     _, _, settings = site
     live = settings.model_copy(update={"session_secret": SecretStr("e2e " * 10)})
     key = make_key(live, "read", name="pricing team")
-    shots = screenshot_dir()
     with serve(create_app(live)) as base:
         context = browser.new_context(viewport={"width": 1280, "height": 900})
         page = context.new_page()
@@ -174,7 +156,7 @@ def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
 
         page.goto(f"{base}/ui/")
         assert page.url == f"{base}/ui/sign-in"
-        page.screenshot(path=str(shots / "01-sign-in.png"))
+        page.screenshot(path=str(screenshots / "01-sign-in.png"))
         page.fill("#key", key)
         page.click("form[action='/ui/sign-in'] button[type=submit]")
         page.wait_for_url(f"{base}/ui/")
@@ -183,7 +165,7 @@ def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
         assert cookie["httpOnly"] and cookie["sameSite"] == "Strict"
         assert key.split("_", 2)[2] not in cookie["value"]
         assert page.locator("table.catalogue tbody tr").count() == 41  # 40 tins and TEA-900
-        page.screenshot(path=str(shots / "02-catalogue.png"))
+        page.screenshot(path=str(screenshots / "02-catalogue.png"))
 
         page.click("button.sort[data-sort-key=elasticity]")
         ascending, _ = elasticity_column(page)
@@ -192,7 +174,7 @@ def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
         descending, _ = elasticity_column(page)
         assert descending == sorted(ascending, reverse=True)
         assert page.get_attribute("th[data-sort-key=elasticity]", "aria-sort") == "descending"
-        page.screenshot(path=str(shots / "03-catalogue-sorted.png"))
+        page.screenshot(path=str(screenshots / "03-catalogue-sorted.png"))
 
         page.click("a[href='/ui/products/TEA-002']")
         page.wait_for_url(f"{base}/ui/products/TEA-002")
@@ -203,12 +185,12 @@ def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
             assert charts.nth(i).is_visible()
         widths = chart_widths(page)
         assert len(widths) == 3 and all(w > 0 for w in widths)  # every SVG arrived, was drawn
-        page.screenshot(path=str(shots / "04-product.png"), full_page=True)
+        page.screenshot(path=str(screenshots / "04-product.png"), full_page=True)
 
         page.click("form.signout button[type=submit]")
         page.wait_for_url(f"{base}/ui/sign-in?signed_out")
         assert "You are signed out" in page.content()
-        page.screenshot(path=str(shots / "05-signed-out.png"))
+        page.screenshot(path=str(screenshots / "05-signed-out.png"))
         assert [c for c in context.cookies() if c["name"] == COOKIE_NAME] == []
         page.goto(f"{base}/ui/products/TEA-002")
         assert page.url.startswith(f"{base}/ui/sign-in?next=")

@@ -29,8 +29,8 @@ from service.core.app import create_app
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.settings import Settings
 from service.ui import chartbook, chartdata_fit_time, records
-from tests.conftest import Database, make_key
-from tests.ui_support import (
+from tests.plugins.storage import Database, make_key
+from tests.plugins.ui_pages import (
     NO_HISTORY,
     REPRICE,
     assert_clean_svg,

@@ -1,6 +1,9 @@
-"""Test support: the app served over real HTTP, and a TCP proxy whose target can vanish.
+"""The app served over real HTTP, and a TCP proxy whose target can vanish.
 
 Both run in threads of the test process on free loopback ports and stop within seconds.
+Helpers: ``serve`` (a context manager yielding the base URL), ``TcpProxy``, ``free_port``
+and ``strict_json``; fixture: ``tcp_proxy`` (a started proxy to a target, stopped after
+the test).
 """
 
 from __future__ import annotations
@@ -10,9 +13,10 @@ import json
 import socket
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from typing import Any
 
+import pytest
 import uvicorn
 from fastapi import FastAPI
 
@@ -149,3 +153,19 @@ def strict_json(text: str) -> Any:
         raise ValueError(f"{token} in a JSON body")
 
     return json.loads(text, parse_constant=refuse)
+
+
+@pytest.fixture
+def tcp_proxy() -> Iterator[Callable[[tuple[str, int]], TcpProxy]]:
+    """Start a ``TcpProxy`` to a (host, port); every proxy started is stopped afterwards."""
+    started: list[TcpProxy] = []
+
+    def start(target: tuple[str, int]) -> TcpProxy:
+        proxy = TcpProxy(target)
+        proxy.start()
+        started.append(proxy)
+        return proxy
+
+    yield start
+    for proxy in started:
+        proxy.stop()

@@ -1,13 +1,16 @@
-"""Helpers for the pricing tests: exact demand data and a brute-force evaluator.
+"""Pricing cases: exact demand data, known families, and a brute-force evaluator.
 
 The evaluator rebuilds expected units from a fit's coefficient table on its own (it
 shares no code with ``models.pricing``), so brute-force searches check the optimiser
-against an independent computation of the same demand curve.
+against an independent computation of the same demand curve. The families
+(``two_linear``, ``two_power``, ``three_mixed``, with unit costs ``COSTS``) are fitted on
+exact data from known cross-price demand curves, once per session.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from functools import cache
 
 import numpy as np
 
@@ -103,3 +106,52 @@ def with_params(fit: DemandFit, params: np.ndarray) -> DemandFit:
     for row, value in zip(data["coefficients"], params, strict=True):
         row["estimate"] = float(value)
     return DemandFit.from_dict(data)
+
+
+FAMILY_PERIODS = 60
+
+
+def family_prices(seed: int, low: float, high: float) -> np.ndarray:
+    return np.random.default_rng(seed).uniform(low, high, FAMILY_PERIODS)
+
+
+@cache
+def two_linear() -> dict[str, DemandFit]:
+    """Linear substitutes with a concave joint profit."""
+    pa, pb = family_prices(1, 8.0, 14.0), family_prices(2, 9.0, 15.0)
+    qa = 200.0 - 12.0 * pa + 4.0 * pb
+    qb = 180.0 - 10.0 * pb + 5.0 * pa
+    return {
+        "A": exact_fit("A", "linear", pa, qa, cross_prices={"B": pb}),
+        "B": exact_fit("B", "linear", pb, qb, cross_prices={"A": pa}),
+    }
+
+
+@cache
+def two_power() -> dict[str, DemandFit]:
+    """Constant-elasticity substitutes (log-log with cross terms)."""
+    pa, pb = family_prices(3, 8.0, 14.0), family_prices(4, 9.0, 16.0)
+    qa = np.exp(7.0 - 2.5 * np.log(pa) + 0.6 * np.log(pb))
+    qb = np.exp(7.5 - 3.0 * np.log(pb) + 0.4 * np.log(pa))
+    return {
+        "A": exact_fit("A", "log-log", pa, qa, cross_prices={"B": pb}),
+        "B": exact_fit("B", "log-log", pb, qb, cross_prices={"A": pa}),
+    }
+
+
+@cache
+def three_mixed() -> dict[str, DemandFit]:
+    """Three forms, substitutes and one complement."""
+    pa, pb = family_prices(5, 6.0, 10.0), family_prices(6, 8.0, 12.0)
+    pc = family_prices(7, 10.0, 16.0)
+    qa = np.exp(6.5 - 2.2 * np.log(pa) + 0.5 * np.log(pb))
+    qb = np.exp(4.5 - 0.3 * pb + 0.05 * pa - 0.04 * pc)
+    qc = 150.0 - 7.0 * pc + 2.0 * pb
+    return {
+        "A": exact_fit("A", "log-log", pa, qa, cross_prices={"B": pb}),
+        "B": exact_fit("B", "semi-log", pb, qb, cross_prices={"A": pa, "C": pc}),
+        "C": exact_fit("C", "linear", pc, qc, cross_prices={"B": pb}),
+    }
+
+
+COSTS = {"A": 4.0, "B": 5.0, "C": 6.0}

@@ -1,22 +1,26 @@
-"""Parse the reference files in this folder (format described in each file's header).
+"""Read the reference files of tests/reference/ (format described in each file's header).
 
 Lines starting with '#' are comments; '[section]' starts a section; [meta] and
 [dataset] hold 'key = value' lines, the other sections are CSV tables with a header row.
+Helper: ``load(name)``; fixture: ``reference_data`` (the same reader).
 """
 
 from __future__ import annotations
 
 import csv
+from collections.abc import Callable
 from pathlib import Path
 
-HERE = Path(__file__).parent
+import pytest
+
+REFERENCE_DIR = Path(__file__).resolve().parent.parent / "reference"
 
 
 def load(name: str) -> dict[str, object]:
     """Sections of a reference file: dicts for key/value sections, lists of row dicts for tables."""
     sections: dict[str, list[str]] = {}
     current = None
-    for raw in (HERE / name).read_text().splitlines():
+    for raw in (REFERENCE_DIR / name).read_text().splitlines():
         line = raw.strip()
         if not line or line.startswith("#"):
             continue
@@ -35,3 +39,9 @@ def load(name: str) -> dict[str, object]:
         else:
             out[section] = list(csv.DictReader(lines))
     return out
+
+
+@pytest.fixture(scope="session")
+def reference_data() -> Callable[[str], dict[str, object]]:
+    """``load``: the sections of a reference file in tests/reference/, by file name."""
+    return load

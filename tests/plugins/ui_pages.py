@@ -1,18 +1,30 @@
-"""Test support for the analyst view: a fitted and priced demo shop, and SVG inspection."""
+"""The analyst view: a fitted and priced demo shop, SVG inspection, and a real browser.
+
+Helpers: ``prepare_shop`` and the SVG readers (``parse``, ``element``, ``gids``,
+``markers``, ``line_markers``, ``assert_clean_svg``, ``texts``). Fixtures: ``browser``
+(Debian's Chromium through Playwright, per module) and ``screenshots`` (the folder browser
+tests leave their screenshots in).
+"""
 
 from __future__ import annotations
 
 import os
 import re
 import xml.etree.ElementTree as ET
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+import pytest
 
 from service.catalogue import demo, products
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.settings import Settings
 from service.jobs import queue as job_store
 from service.jobs.worker import JobRunner
+
+if TYPE_CHECKING:
+    from playwright.sync_api import Browser
 
 SVG_NS = "{http://www.w3.org/2000/svg}"
 NO_HISTORY = "TEA-900"  # a product created without any sales history
@@ -119,3 +131,24 @@ def screenshot_dir() -> Path:
     folder = Path(os.environ.get("MARGINAL_SCREENSHOT_DIR", "screenshots"))
     folder.mkdir(parents=True, exist_ok=True)
     return folder.resolve()
+
+
+@pytest.fixture
+def screenshots() -> Path:
+    """The folder browser tests leave their screenshots in."""
+    return screenshot_dir()
+
+
+@pytest.fixture(scope="module")
+def browser() -> Iterator[Browser]:
+    """Debian's Chromium driven by Playwright (never a downloaded browser)."""
+    if not Path(CHROMIUM).exists():
+        if os.environ.get("CI"):
+            pytest.fail(f"{CHROMIUM} is missing; .ci/run installs it")
+        pytest.skip(f"{CHROMIUM} is not installed (apt-get install chromium)")
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as playwright:
+        chromium = playwright.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+        yield chromium
+        chromium.close()
