@@ -19,5 +19,6 @@ pytest_plugins = [
     "tests.plugins.fit_cases",
     "tests.plugins.pricing_cases",
     "tests.plugins.reference_data",
+    "tests.plugins.reference_checks",
     "tests.plugins.ui_pages",
 ]
