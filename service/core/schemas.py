@@ -77,7 +77,6 @@ class Problem(BaseModel):
     errors: list[ProblemItem] | None = None
 
 
-
 class Health(BaseModel):
     status: Literal["ok"]
 

@@ -66,9 +66,7 @@ def _price_warnings(fit: DemandFit, price: float | None) -> list[dict[str, Any]]
     return []
 
 
-def elasticities_at(
-    fit: DemandFit, *, at: str, income_like: tuple[str, ...]
-) -> ElasticityAnswer:
+def elasticities_at(fit: DemandFit, *, at: str, income_like: tuple[str, ...]) -> ElasticityAnswer:
     """The fit's elasticities at a point (see :func:`parse_point`)."""
     point = parse_point(at)
     known = set(fit.variable_means)

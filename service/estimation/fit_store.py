@@ -128,9 +128,10 @@ class PostgresFitRecords:
 
     def insert(self, conn: Connection, rows: Sequence[dict[str, Any]]) -> None:
         driver: Any = conn.connection.driver_connection
-        with driver.cursor() as cursor, cursor.copy(
-            f"COPY fits ({', '.join(_COLUMNS)}) FROM STDIN"
-        ) as copy:
+        with (
+            driver.cursor() as cursor,
+            cursor.copy(f"COPY fits ({', '.join(_COLUMNS)}) FROM STDIN") as copy,
+        ):
             for row in rows:
                 copy.write_row([row[name] for name in _COLUMNS])
 

@@ -109,9 +109,10 @@ def run_refit(
     batches = make_batches(candidates, settings.job_batch_size)
     fitted = [b for b in batches if b.spec is not None]
     threads = not settings.is_sqlite
-    with read_lane(reads, settings, len(fitted)) as reading_lane, lane(
-        threads, "marginal-refit-write"
-    ) as writer:
+    with (
+        read_lane(reads, settings, len(fitted)) as reading_lane,
+        lane(threads, "marginal-refit-write") as writer,
+    ):
         upcoming = iter(fitted)
 
         def read_next() -> Task[list[History]] | None:

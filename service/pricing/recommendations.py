@@ -65,9 +65,7 @@ def price_constraints(product: PricedProduct, rules: ConstraintsIn) -> PriceCons
         return PriceConstraints(**values)
 
 
-def current_price(
-    product: PricedProduct, fit: DemandFit, given: float | None
-) -> float | None:
+def current_price(product: PricedProduct, fit: DemandFit, given: float | None) -> float | None:
     if given is not None:
         return given
     if product.current_price is not None:
