@@ -125,9 +125,7 @@ def test_postgres_outage_gives_503_then_recovers_without_restart(
             assert http.get("/v1/products/OUT-1/observations").status_code == 200
         assert parallel(base_url, auth, "/v1/products/OUT-1/observations", 6) == [200] * 6
         assert http.post("/v1/products/OUT-1/observations", json=later).status_code == 200
-        assert (
-            http.post("/v1/imports", content=csv_body, headers=csv_headers).status_code == 200
-        )
+        assert http.post("/v1/imports", content=csv_body, headers=csv_headers).status_code == 200
         background.stop()
 
         # A restart while no request runs: every pooled connection is dead, nothing has

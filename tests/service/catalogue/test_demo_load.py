@@ -31,15 +31,15 @@ def test_demo_loads_once_and_reloads_in_place(
     assert {"rival_price", "promo", "ad_spend", "holiday"} <= set(history[0]["covariates"])
 
 
-def test_demo_history_round_trips_exactly(db: Database, client: TestClient,
-                                          headers: dict[str, str]) -> None:
+def test_demo_history_round_trips_exactly(
+    db: Database, client: TestClient, headers: dict[str, str]
+) -> None:
     from models.scenario import generate_catalogue
 
     catalogue = generate_catalogue(7)
     demo.load_catalogue(db.settings, catalogue)
     product = catalogue.products[3]
-    stored = client.get(f"/v1/products/{product.sku}/observations",
-                        headers=headers).json()["items"]
+    stored = client.get(f"/v1/products/{product.sku}/observations", headers=headers).json()["items"]
     assert [s["units"] for s in stored] == product.history.units.tolist()
     assert [s["price"] for s in stored] == product.history.price.tolist()
     assert [s["in_stock"] for s in stored] == product.history.in_stock.tolist()

@@ -236,17 +236,22 @@ def test_bulk_sessions_switch_foreign_keys_off_only_inside(tmp_path: Path) -> No
 def test_covariate_text_is_stored_as_json_numbers(
     client: TestClient, headers: dict[str, str]
 ) -> None:
-    body = _csv("sku,period,price,units,ad_spend,promo",
-                "TEA-001,2024-01-01,5,1,1.5e3,01",
-                "TEA-001,2024-01-08,5,1,-0.25,1.")
+    body = _csv(
+        "sku,period,price,units,ad_spend,promo",
+        "TEA-001,2024-01-01,5,1,1.5e3,01",
+        "TEA-001,2024-01-08,5,1,-0.25,1.",
+    )
     assert _post(client, headers, body).status_code == 200
     items = client.get("/v1/products/TEA-001/observations", headers=headers).json()["items"]
-    assert [i["covariates"] for i in items] == [{"ad_spend": 1500.0, "promo": 1.0},
-                                                {"ad_spend": -0.25, "promo": 1.0}]
+    assert [i["covariates"] for i in items] == [
+        {"ad_spend": 1500.0, "promo": 1.0},
+        {"ad_spend": -0.25, "promo": 1.0},
+    ]
 
 
-def test_overflowing_covariate_is_refused(client: TestClient, headers: dict[str, str],
-                                          db: Database) -> None:
+def test_overflowing_covariate_is_refused(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
     body = _csv("sku,period,price,units,ad_spend", "TEA-001,2024-01-01,5,1,1e999")
     response = _post(client, headers, body)
     assert response.status_code == 422

@@ -281,4 +281,3 @@ def test_a_job_reads_the_rest_itself_when_a_reader_process_dies(
     assert status == "succeeded" and killed == [-signal.SIGKILL] * 2
     assert "reads in its own process from now on" in caplog.text
     assert len(_check_records(settings, None)) == 40
-

@@ -296,7 +296,6 @@ def test_reprice_job_recommends_once_per_active_product(
 def test_job_options_are_checked_before_queueing(
     shop: TestClient, headers: dict[str, str], db: Database, body: dict[str, object]
 ) -> None:
-
     response = shop.post("/v1/jobs", json=body, headers=headers)
     assert response.status_code == 422
     assert row_count(db.settings, "jobs") == 0

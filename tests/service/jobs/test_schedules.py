@@ -63,7 +63,6 @@ def test_bad_schedules(
 
 
 def test_schedules_need_admin(client: TestClient, db: Database) -> None:
-
     writer = {"Authorization": f"Bearer {make_key(db.settings, 'read', 'write')}"}
     assert client.put("/v1/schedules/x", json=NIGHTLY, headers=writer).status_code == 403
 
