@@ -191,7 +191,9 @@ def _report(args: argparse.Namespace, settings: Settings) -> int:
         f"wrote {summary.pages} pages and {summary.charts} charts for {summary.products} "
         f"products to {summary.out}"
     )
-    return 0
+    for sku, reason in summary.failed.items():
+        print(f"{sku}: page not made: {reason}", file=sys.stderr)
+    return 1 if summary.failed else 0
 
 
 def openapi_document() -> str:

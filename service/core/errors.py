@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from sqlalchemy.exc import DBAPIError, InterfaceError, OperationalError
 
 from models import (
     InfeasibleConstraintsError,
@@ -98,6 +99,10 @@ class Unavailable(ServiceError):
     """The database cannot be reached right now; retrying later may work."""
 
 
+class ClusterUnavailable(Unavailable):
+    """A job's cluster cannot be reached or started, or cannot be used with this database."""
+
+
 # What the library raises when the numbers themselves defeat it (not a bad request shape).
 NUMERIC_FAILURES: tuple[type[Exception], ...] = (
     FloatingPointError,
@@ -123,6 +128,33 @@ def numeric_reason(exc: BaseException) -> str:
     if isinstance(exc, ZeroDivisionError) or "divide by zero" in str(exc):
         return "a statistic divides by zero (values that are all zero or never vary?)"
     return f"the values are too large or too small for double precision ({exc})"
+
+
+def is_outage(exc: BaseException) -> bool:
+    """Whether ``exc`` says the database itself is unreachable, locked or full (a whole
+    job stops then), rather than that one product's stored values cannot be used."""
+    if isinstance(exc, Unavailable | MemoryError):
+        return True
+    if isinstance(exc, DBAPIError):
+        return bool(exc.connection_invalidated) or isinstance(
+            exc, OperationalError | InterfaceError
+        )
+    return False
+
+
+def failure_reason(exc: BaseException) -> str:
+    """A short sentence for a product's failure in a job, safe to show and to store: a
+    domain error's detail, a numerical failure's description, or the error's class and
+    message (never a database statement or its parameters)."""
+    if isinstance(exc, ServiceError):
+        return exc.detail
+    if isinstance(exc, NUMERIC_FAILURES):
+        return numeric_reason(exc)
+    if isinstance(exc, DBAPIError):
+        first = str(exc.orig).strip().splitlines()[0] if str(exc.orig).strip() else ""
+        return f"the database refused a stored value ({type(exc.orig).__name__}: {first[:200]})"
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    return f"{type(exc).__name__}: {text[:200]}" if text else type(exc).__name__
 
 
 def unusable(what: str, exc: BaseException, *, field: str = "body") -> InvalidInput:

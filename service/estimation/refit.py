@@ -14,6 +14,7 @@ process fits; batches are still written one after the other, in order.
 from __future__ import annotations
 
 import json
+import logging
 from collections import deque
 from collections.abc import Sequence
 from typing import Any
@@ -24,14 +25,16 @@ from sqlalchemy.orm import Session, sessionmaker
 from models import DemandFit, FitFailure, History, ModelSpec, fit_many
 from service.catalogue.ingest import cyclic_gc_paused
 from service.core.db import session_scope
-from service.core.errors import NUMERIC_FAILURES, numeric_reason, strict_floats
+from service.core.errors import failure_reason, is_outage, strict_floats
 from service.core.settings import Settings
 from service.core.tables import FitRow, JobRow, ProductRow, as_utc
 from service.estimation import fit_store
-from service.estimation.batch_reads import Task, lane, read_lane
+from service.estimation.batch_reads import Task, lane, read_batch, read_lane
 from service.estimation.fit_store import encode_result
-from service.estimation.refit_batches import Candidate, make_batches
+from service.estimation.refit_batches import Batch, Candidate, make_batches
 from service.jobs import queue as jobs
+
+log = logging.getLogger(__name__)
 
 
 def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress) -> list[Candidate]:
@@ -143,16 +146,17 @@ def run_refit(
                 continue
             task = reading.popleft()
             assert task is not None
-            histories = task.result()
+            histories, unread = read_guarded(reads, batch, task)
             reading.append(read_next())
             families = {c.sku: c.family or "" for c in batch.members}
             # Histories, fits and records are many short-lived objects without cycles:
             # collector passes over them cost about a third of a batch and free nothing.
             with cyclic_gc_paused():
-                results = fit_guarded(histories, batch.spec, families=families)
+                fits = iter(fit_guarded(histories, batch.spec, families=families))
+                results = [unread.get(c.sku) or next(fits) for c in batch.members]
                 # The records' JSON (most of a write's work) is made here, in parallel
                 # with the last batch's write on PostgreSQL.
-                texts = [encode_result(r) if isinstance(r, DemandFit) else None for r in results]
+                results, texts = encode_guarded(results)
             del histories
             settle()
             writing = writer(
@@ -195,30 +199,83 @@ def _write(
         jobs.save_progress(session, job_id=job_id, progress=progress)
 
 
+def read_guarded(
+    reads: sessionmaker[Session], batch: Batch, task: Task[list[History]]
+) -> tuple[list[History], dict[str, FitFailure]]:
+    """A batch's histories; if the batch cannot be read, each product is read alone and
+    one that still cannot be read becomes a failure of its own (with its reason), so the
+    job goes on. A database that cannot be reached at all stops the job."""
+    try:
+        return task.result(), {}
+    except Exception as exc:
+        if is_outage(exc):
+            raise
+        log.warning("refit: a batch could not be read, reading its products one by one")
+    histories: list[History] = []
+    unread: dict[str, FitFailure] = {}
+    for member in batch.members:
+        try:
+            histories += read_batch(reads, Batch([member], batch.spec))
+        except Exception as exc:
+            if is_outage(exc):
+                raise
+            log.warning("refit: %s cannot be read: %s", member.sku, failure_reason(exc))
+            unread[member.sku] = FitFailure(
+                member.sku, f"cannot be read: {failure_reason(exc)}", type(exc).__name__
+            )
+    return histories, unread
+
+
 def fit_guarded(
     histories: Sequence[History], spec: ModelSpec, *, families: dict[str, str]
 ) -> list[DemandFit | FitFailure]:
-    """``fit_many``, except that a product whose numbers defeat double precision becomes a
-    failure of its own instead of stopping the whole batch."""
+    """``fit_many``, except that a product that cannot be fitted (numbers that defeat
+    double precision, or any other error of its own) becomes a failure of its own
+    instead of stopping the whole batch."""
     try:
         with strict_floats():
             return fit_many(histories, spec, families=families)
-    except NUMERIC_FAILURES:
-        pass
+    except Exception as exc:
+        if is_outage(exc):
+            raise
     failures: dict[str, FitFailure] = {}
     for history in histories:
         try:
             with strict_floats():
                 fit_many([history], spec, families=families)
-        except NUMERIC_FAILURES as exc:
-            failures[history.sku] = FitFailure(history.sku, numeric_reason(exc), type(exc).__name__)
+        except Exception as exc:
+            if is_outage(exc):
+                raise
+            failures[history.sku] = FitFailure(history.sku, failure_reason(exc), type(exc).__name__)
     rest = [h for h in histories if h.sku not in failures]
     try:
         with strict_floats():
             fitted = iter(fit_many(rest, spec, families=families))
-    except NUMERIC_FAILURES as exc:  # only together do they fail: fail them all
-        fitted = iter(FitFailure(h.sku, numeric_reason(exc), type(exc).__name__) for h in rest)
+    except Exception as exc:  # only together do they fail: fail them all
+        if is_outage(exc):
+            raise
+        fitted = iter(FitFailure(h.sku, failure_reason(exc), type(exc).__name__) for h in rest)
     return [failures.get(h.sku) or next(fitted) for h in histories]
+
+
+def encode_guarded(
+    results: Sequence[DemandFit | FitFailure],
+) -> tuple[list[DemandFit | FitFailure], list[str | None]]:
+    """The records' JSON text; a fit whose record cannot be written becomes a failure."""
+    out: list[DemandFit | FitFailure] = []
+    texts: list[str | None] = []
+    for result in results:
+        text = None
+        if isinstance(result, DemandFit):
+            try:
+                text = encode_result(result)
+            except Exception as exc:
+                result = FitFailure(
+                    result.sku, f"cannot be stored: {failure_reason(exc)}", type(exc).__name__
+                )
+        out.append(result)
+        texts.append(text)
+    return out, texts
 
 
 def _record(

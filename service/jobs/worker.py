@@ -14,6 +14,7 @@ from sqlalchemy import Engine
 
 from service.core import metrics
 from service.core.db import make_session_factory, session_scope
+from service.core.errors import failure_reason
 from service.core.settings import Settings
 from service.estimation.refit import run_refit
 from service.jobs import queue as jobs
@@ -71,7 +72,7 @@ class JobRunner:
                 self.writes,
                 job_id=job_id,
                 status=jobs.FAILED,
-                message=f"{type(exc).__name__}: {exc}"[:500],
+                message=failure_reason(exc)[:500],
             )
             metrics.record_job(kind, jobs.FAILED, time.perf_counter() - started, None)
             return jobs.FAILED

@@ -8,7 +8,7 @@ from sqlalchemy import insert, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.core.db import session_scope
-from service.core.errors import ServiceError, WrongSign
+from service.core.errors import ServiceError, WrongSign, failure_reason, is_outage
 from service.core.settings import Settings
 from service.core.tables import FitRow, ProductRow, RecommendationRow, utcnow
 from service.estimation.fit_cache import fit_cache
@@ -58,10 +58,13 @@ def run_reprice(
                     progress.counts["skipped"] += 1
                     progress.add_error(product.sku, "skipped: no active fit")
                     continue
-                fit = fit_cache.get(session, fit_id, created_at)
-                scenario = {k: v for k, v in request.scenario.items() if k in fit.variable_means}
                 try:
+                    fit = fit_cache.get(session, fit_id, created_at)
+                    scenario = {
+                        k: v for k, v in request.scenario.items() if k in fit.variable_means
+                    }
                     result = price_product(fit, product, request, scenario=scenario)
+                    record = result.to_dict()
                 except WrongSign as exc:
                     progress.counts["failed"] += 1
                     progress.add_error(product.sku, f"refused: {exc.reason}")
@@ -70,9 +73,11 @@ def run_reprice(
                     progress.counts["failed"] += 1
                     progress.add_error(product.sku, exc.detail)
                     continue
-                except ValueError as exc:  # a stored value the library refuses
+                except Exception as exc:  # a stored value that cannot be used: this product only
+                    if is_outage(exc):
+                        raise
                     progress.counts["failed"] += 1
-                    progress.add_error(product.sku, str(exc))
+                    progress.add_error(product.sku, failure_reason(exc))
                     continue
                 progress.counts["recommended"] += 1
                 records.append(
@@ -81,7 +86,7 @@ def run_reprice(
                         "fit_id": fit_id,
                         "objective": request.objective,
                         "request": {"job_id": job_id, **request.model_dump()},
-                        "result": result.to_dict(),
+                        "result": record,
                         "created_at": utcnow(),
                     }
                 )

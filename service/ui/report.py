@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import logging
 import os
 import shutil
 import tempfile
@@ -18,6 +19,7 @@ from pathlib import Path
 from typing import IO
 
 from service.core.db import make_engine, make_session_factory, session_scope
+from service.core.errors import failure_reason, is_outage
 from service.core.settings import Settings
 from service.jobs.progress import JobProgressDisplay
 from service.jobs.queue import Progress
@@ -26,6 +28,7 @@ from service.ui.links import StaticLinks
 from service.ui.templating import STATIC_DIR, render
 
 LINKS = StaticLinks()
+log = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
@@ -34,6 +37,8 @@ class ReportSummary:
     products: int
     pages: int
     charts: int
+    # Products whose page could not be made (sku: reason); the others were written.
+    failed: dict[str, str] = dataclasses.field(default_factory=dict)
 
 
 def _write(path: Path, content: str | bytes) -> None:
@@ -65,6 +70,7 @@ def write_report(
     common = {"links": LINKS, "viewer": None, "generated": generated}
     engine = make_engine(settings)
     written_pages = written_charts = 0
+    failed: dict[str, str] = {}
     try:
         with session_scope(make_session_factory(engine, writer=False)) as session:
             catalogue = pages.catalogue(session, family=family, page_size=None)
@@ -86,22 +92,48 @@ def write_report(
             with JobProgressDisplay("report", stream=stream) as display:
                 display.update(progress)
                 for product in products:
-                    subject = chartbook.subject(session, product)
-                    drawn = chartbook.draw_all(subject)
+                    try:
+                        subject = chartbook.subject(session, product)
+                        drawn = chartbook.draw_all(subject)
+                        page = render(
+                            "product.html",
+                            page=pages.product_page_for(session, subject, drawn=drawn),
+                            **common,
+                        )
+                    except Exception as exc:  # this product alone: the folder stays whole
+                        if is_outage(exc):
+                            raise
+                        reason = failure_reason(exc)
+                        log.warning(
+                            "report: the page of %s cannot be made: %s", product.sku, reason
+                        )
+                        failed[product.sku] = reason
+                        progress.add_error(product.sku, reason)
+                        drawn = {}
+                        page = render(
+                            "missing.html",
+                            heading=f"{product.sku}: page not made",
+                            detail=f"The page of this product could not be made: {reason}",
+                            **common,
+                        )
                     for kind, chart in drawn.items():
                         _write(out / LINKS.chart(product.sku, kind), chart.svg)
                         written_charts += 1
-                    page = pages.product_page_for(session, subject, drawn=drawn)
-                    _write(
-                        out / LINKS.product(product.sku),
-                        render("product.html", page=page, **common),
-                    )
+                    _write(out / LINKS.product(product.sku), page)
                     written_pages += 1
                     progress.done += 1
-                    progress.counts = {"pages": written_pages, "charts": written_charts}
+                    progress.counts = {
+                        "pages": written_pages,
+                        "charts": written_charts,
+                        "failed": len(failed),
+                    }
                     display.update(progress)
     finally:
         engine.dispose()
     return ReportSummary(
-        out=out, products=len(products), pages=written_pages, charts=written_charts
+        out=out,
+        products=len(products),
+        pages=written_pages,
+        charts=written_charts,
+        failed=failed,
     )
