@@ -25,7 +25,12 @@ from models.pricing.joint_draws import family_draws
 from models.pricing.result import (
     FamilyRecommendation,
 )
-from models.pricing.single import STATUS_CONSTRAINED, STATUS_INTERIOR
+from models.pricing.single import (
+    OPTIMUM_WORDS,
+    SEARCH_WORDS,
+    STATUS_CONSTRAINED,
+    STATUS_INTERIOR,
+)
 from models.result import DemandFit, FitWarning
 
 
@@ -163,11 +168,12 @@ def optimal_family_prices(
         for b in r.binding_constraints
         if b not in ("order", "max_total_change_pct")
     ]
-    status = max((r.status for r in products), default=STATUS_INTERIOR)
+    rank = {word: status for status, word in OPTIMUM_WORDS.items()}
+    status = max((rank[r.optimum] for r in products), default=STATUS_INTERIOR)
     if family_binding:
         status = max(status, STATUS_CONSTRAINED)
     message = (
-        f"Optimum on constraints: {', '.join(dict.fromkeys(named))}."
+        f"Optimum held by rules: {', '.join(dict.fromkeys(named))}."
         if named
         else "Optimum found inside the allowed prices."
     )
@@ -179,9 +185,8 @@ def optimal_family_prices(
         max_total_change_pct=None if max_total_change_pct is None else float(max_total_change_pct),
         binding_constraints=tuple(family_binding),
         warnings=tuple(warnings),
-        method=method,
-        success=True,
-        status=status,
-        message=f"{message} SLSQP: {solved.message}",
-        nit=nit,
+        optimum=OPTIMUM_WORDS[status],
+        search=SEARCH_WORDS[method],
+        search_steps=nit,
+        summary=message,
     )

@@ -23,7 +23,13 @@ from models.pricing.result import (
     PriceRecommendation,
     TotalFigures,
 )
-from models.pricing.single import STATUS_CONSTRAINED, STATUS_INTERIOR, STATUS_UNBOUNDED
+from models.pricing.single import (
+    OPTIMUM_WORDS,
+    SEARCH_WORDS,
+    STATUS_CONSTRAINED,
+    STATUS_INTERIOR,
+    STATUS_UNBOUNDED,
+)
 from models.pricing.solve1d import SEARCH_SPAN, at_bound, unconstrained
 from models.result import FitWarning
 
@@ -173,15 +179,14 @@ def product_recommendation(
         warnings=tuple(warnings),
         curve=None,
         scenario={k: v for k, v in setup.values[i].items() if k not in setup.demand.skus},
-        method=method,
-        success=True,
-        status=status,
-        message=(
-            f"Optimum on a constraint: {', '.join(binding)}."
+        optimum=OPTIMUM_WORDS[status],
+        search=SEARCH_WORDS[method],
+        search_steps=nit,
+        summary=(
+            f"Optimum held by a rule: {', '.join(binding)}."
             if binding
             else "Optimum found inside the allowed prices."
         ),
-        nit=nit,
     )
 
 

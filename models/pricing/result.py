@@ -109,14 +109,21 @@ class PriceRecommendation:
     curve : tuple of CurvePoint or None
     scenario : dict of str to float
         Variable values the demand was evaluated at (own price excluded).
-    method : str
-        ``"continuous"``, ``"grid"`` (exact search over allowed prices) or, in large
-        families with grids, ``"grid-local"``.
-    success, status, message, nit
-        Solver vocabulary as in :class:`scipy.optimize.OptimizeResult`: status 0 interior
-        optimum, 1 optimum on a constraint, 2 on a bound because the objective is
-        unbounded; ``nit`` counts root-finder iterations (continuous) or allowed prices
-        evaluated (grid).
+    optimum : str
+        What kind of optimum the price is: ``"interior"`` (the objective's own best
+        price, inside the allowed prices), ``"held_by_rule"`` (a constraint holds the
+        price where it is) or ``"no_finite_optimum"`` (the objective keeps improving
+        toward a bound, so the price sits on that bound).
+    search : str
+        How the price was found: ``"continuous"`` (any price in the allowed range),
+        ``"allowed_prices"`` (every allowed price of a step or endings rule compared) or,
+        in large families, ``"allowed_prices_local"`` (allowed prices near the continuous
+        optimum compared).
+    search_steps : int
+        Steps of the search: root-finder iterations (continuous) or allowed prices
+        compared.
+    summary : str
+        One sentence on the optimum in plain words.
     """
 
     sku: str
@@ -133,11 +140,10 @@ class PriceRecommendation:
     warnings: tuple[FitWarning, ...]
     curve: tuple[CurvePoint, ...] | None
     scenario: dict[str, float]
-    method: str
-    success: bool
-    status: int
-    message: str
-    nit: int
+    optimum: str
+    search: str
+    search_steps: int
+    summary: str
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe mapping (no NaN or infinity)."""
@@ -160,11 +166,10 @@ class PriceRecommendation:
                 "warnings": [{"code": w.code, "message": w.message} for w in self.warnings],
                 "curve": None if self.curve is None else [p.to_dict() for p in self.curve],
                 "scenario": self.scenario,
-                "method": self.method,
-                "success": self.success,
-                "status": self.status,
-                "message": self.message,
-                "nit": self.nit,
+                "optimum": self.optimum,
+                "search": self.search,
+                "search_steps": self.search_steps,
+                "summary": self.summary,
             }
         )
         return out
@@ -228,9 +233,10 @@ class FamilyRecommendation:
         ``"max_total_change_pct"``).
     warnings : tuple of FitWarning
         Family-level warnings (product warnings sit with the products).
-    method, success, status, message, nit
-        As in :class:`PriceRecommendation`; ``nit`` counts SLSQP iterations of the
-        chosen start (or grid combinations evaluated).
+    optimum, search, search_steps, summary
+        As in :class:`PriceRecommendation`; ``search_steps`` counts the iterations of the
+        joint continuous search from its chosen start (or the combinations of allowed
+        prices compared).
     """
 
     objective: str
@@ -240,11 +246,10 @@ class FamilyRecommendation:
     max_total_change_pct: float | None
     binding_constraints: tuple[str, ...]
     warnings: tuple[FitWarning, ...]
-    method: str
-    success: bool
-    status: int
-    message: str
-    nit: int
+    optimum: str
+    search: str
+    search_steps: int
+    summary: str
 
     def product(self, sku: str) -> PriceRecommendation:
         """The recommendation of one product."""
@@ -264,11 +269,10 @@ class FamilyRecommendation:
                 "max_total_change_pct": self.max_total_change_pct,
                 "binding_constraints": list(self.binding_constraints),
                 "warnings": [{"code": w.code, "message": w.message} for w in self.warnings],
-                "method": self.method,
-                "success": self.success,
-                "status": self.status,
-                "message": self.message,
-                "nit": self.nit,
+                "optimum": self.optimum,
+                "search": self.search,
+                "search_steps": self.search_steps,
+                "summary": self.summary,
             }
         )
         return out

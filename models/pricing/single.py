@@ -39,9 +39,20 @@ from models.pricing.solve1d import (
 )
 from models.result import DemandFit, FitWarning
 
+# Kinds of optimum, ranked: a family's optimum is the most constrained of its products'.
 STATUS_INTERIOR = 0
 STATUS_CONSTRAINED = 1
 STATUS_UNBOUNDED = 2
+OPTIMUM_WORDS = {
+    STATUS_INTERIOR: "interior",
+    STATUS_CONSTRAINED: "held_by_rule",
+    STATUS_UNBOUNDED: "no_finite_optimum",
+}
+SEARCH_WORDS = {
+    "continuous": "continuous",
+    "grid": "allowed_prices",
+    "grid-local": "allowed_prices_local",
+}
 
 
 def price_point(curve: DemandCurve, price: float, unit_cost: float | None) -> PricePoint:
@@ -142,9 +153,9 @@ def _unbounded_warning(
 
 def _message(status: int, binding: list[str], grid: str | None, n_grid: int) -> str:
     if status == STATUS_UNBOUNDED:
-        text = f"Objective unbounded; the price sits on {', '.join(binding)}."
+        text = f"No finite optimum; the price sits on {', '.join(binding)}."
     elif status == STATUS_CONSTRAINED:
-        text = f"Optimum on a constraint: {', '.join(binding)}."
+        text = f"Optimum held by a rule: {', '.join(binding)}."
     else:
         text = "Optimum found inside the allowed prices."
     if grid is not None:
@@ -348,9 +359,8 @@ def optimal_price(
         warnings=tuple(warnings),
         curve=(_curve(curve, fit, iv, unit_cost, interest, curve_points) if curve_points else None),
         scenario=values,
-        method=method,
-        success=True,
-        status=status,
-        message=_message(status, binding, grid_name, nit),
-        nit=nit,
+        optimum=OPTIMUM_WORDS[status],
+        search=SEARCH_WORDS[method],
+        search_steps=nit,
+        summary=_message(status, binding, grid_name, nit),
     )

@@ -5,17 +5,14 @@ from __future__ import annotations
 from typing import Annotated
 
 from fastapi import APIRouter, Path, Query, Response, status
-from pydantic import ValidationError
 
 from service.core.deps import ADMIN, READ, WRITE, ReadSession, WriteSession
-from service.core.errors import ErrorItem, InvalidInput
 from service.core.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import Page
 from service.core.tables import ScheduleRow, utcnow
-from service.estimation import fits
 from service.jobs import queue as jobs
-from service.jobs import schedules
+from service.jobs import schedules, submit
 from service.jobs.schemas import (
     JobIn,
     JobOut,
@@ -25,7 +22,6 @@ from service.jobs.schemas import (
     job_out,
     schedule_out,
 )
-from service.pricing.schemas import OptimalPriceRequest
 
 router = APIRouter(tags=["jobs"])
 NamePath = Annotated[str, Path(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")]
@@ -43,9 +39,8 @@ NamePath = Annotated[str, Path(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")]
 def create_job(body: JobIn, session: WriteSession) -> JobOut:
     """The job runs in the background (the service's worker or `marginal worker`); poll
     `GET /v1/jobs/{id}` for its progress."""
-    check_job_options(body)
     scope = body.scope if isinstance(body.scope, str) else body.scope.model_dump()
-    row = jobs.create(
+    row = submit.submit(
         session, kind=body.kind, scope=scope, force=body.force, spec=body.spec, request=body.request
     )
     return job_out(row)
@@ -87,23 +82,10 @@ def list_jobs(
 
 
 def check_job_options(body: JobIn, prefix: str = "") -> None:
-    """A reprice job's request and a refit job's spec are checked before queueing."""
-    if body.kind == "reprice" and body.request is not None:
-        try:
-            OptimalPriceRequest.model_validate(body.request)
-        except ValidationError as exc:
-            raise InvalidInput(
-                "the reprice request is invalid",
-                errors=[
-                    ErrorItem(
-                        field=f"{prefix}request." + ".".join(str(p) for p in e["loc"]),
-                        message=e["msg"],
-                    )
-                    for e in exc.errors()
-                ],
-            ) from None
-    if body.kind == "refit" and body.spec is not None:
-        fits.parse_spec(body.spec, field_prefix=f"{prefix}spec")
+    """A job's options, checked before it is queued or scheduled."""
+    submit.check_options(
+        kind=body.kind, force=body.force, spec=body.spec, request=body.request, prefix=prefix
+    )
 
 
 def _schedule_out(session: ReadSession | WriteSession, row: ScheduleRow) -> ScheduleOut:

@@ -46,6 +46,21 @@ class ConstraintsIn(Strict):
     )
 
 
+Optimum = Literal["interior", "held_by_rule", "no_finite_optimum"]
+OPTIMUM_HELP = (
+    "What kind of optimum the price is: `interior` (the objective's own best price, inside "
+    "the allowed prices), `held_by_rule` (a business rule holds the price where it is; see "
+    "`binding_constraints`) or `no_finite_optimum` (the objective keeps improving toward a "
+    "bound, so the price sits on that bound)"
+)
+Search = Literal["continuous", "allowed_prices", "allowed_prices_local"]
+SEARCH_HELP = (
+    "How the price was found: `continuous` (any price in the allowed range), "
+    "`allowed_prices` (every price a step or endings rule allows compared) or "
+    "`allowed_prices_local` (in large families, the allowed prices near the continuous "
+    "optimum compared)"
+)
+
 ScenarioValue = Annotated[float, Field(strict=True, allow_inf_nan=False)]
 
 
@@ -133,11 +148,12 @@ class RecommendationOut(BaseModel):
     warnings: list[WarningOut]
     curve: list[CurvePointOut] | None = None
     scenario: dict[str, Any]
-    method: str
-    success: bool
-    status: int
-    message: str
-    nit: int
+    optimum: Optimum = Field(description=OPTIMUM_HELP)
+    search: Search = Field(description=SEARCH_HELP)
+    search_steps: int = Field(
+        description="Steps of the search: iterations (continuous) or allowed prices compared"
+    )
+    summary: str = Field(description="One sentence on the optimum, in plain words")
 
 
 class FamilyPriceRequest(Strict):
@@ -196,8 +212,9 @@ class FamilyRecommendationOut(BaseModel):
     excluded: list[ExcludedProduct] = Field(
         description="Family products left out (no active fit), with the reason"
     )
-    method: str
-    success: bool
-    status: int
-    message: str
-    nit: int
+    optimum: Optimum = Field(description=OPTIMUM_HELP)
+    search: Search = Field(description=SEARCH_HELP)
+    search_steps: int = Field(
+        description="Steps of the search: iterations (continuous) or allowed prices compared"
+    )
+    summary: str = Field(description="One sentence on the optimum, in plain words")

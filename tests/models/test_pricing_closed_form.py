@@ -33,7 +33,7 @@ def test_markup_rule_worked_example(form: str) -> None:
     result = optimal_price(fit, unit_cost=9.0)
     assert result.recommended.price == pytest.approx(12.0, rel=REL)
     assert result.unconstrained_price == pytest.approx(12.0, rel=REL)
-    assert result.binding_constraints == () and result.status == 0
+    assert result.binding_constraints == () and result.optimum == "interior"
     # Lerner index (P - MC) / P = -1/E_d, eq. (10.1): a 25% margin.
     assert result.recommended.margin_pct == pytest.approx(25.0, rel=REL)
 

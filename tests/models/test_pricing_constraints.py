@@ -167,7 +167,7 @@ def test_constrained_optimum_matches_brute_force(name: str, form: str, objective
 def test_binding_constraints_are_named() -> None:
     data = case("poisson")  # its profit optimum lies inside the observed prices
     free = optimal_price(data.fit, unit_cost=data.cost, current_price=data.current)
-    assert free.binding_constraints == () and free.status == 0
+    assert free.binding_constraints == () and free.optimum == "interior"
     assert free.recommended.price == pytest.approx(free.unconstrained_price, rel=1e-9)
     half_way = abs(free.recommended.price / data.current - 1.0) * 50.0
     result = optimal_price(
@@ -177,7 +177,7 @@ def test_binding_constraints_are_named() -> None:
         constraints=PriceConstraints(max_change_pct=half_way),
     )
     assert result.binding_constraints == ("max_change_pct",)
-    assert result.status == 1 and "max_change_pct" in result.message
+    assert result.optimum == "held_by_rule" and "max_change_pct" in result.summary
     assert abs(result.change_pct or 0.0) == pytest.approx(half_way, rel=1e-9)
     on_grid = optimal_price(
         data.fit,
@@ -186,7 +186,7 @@ def test_binding_constraints_are_named() -> None:
         constraints=PriceConstraints(max_change_pct=half_way, price_step=0.01),
     )
     assert on_grid.binding_constraints == ("max_change_pct", "price_step")
-    assert on_grid.method == "grid"
+    assert on_grid.search == "allowed_prices"
 
 
 def test_stock_cap_binds_at_the_price_that_sells_the_stock() -> None:

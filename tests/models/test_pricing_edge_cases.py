@@ -35,7 +35,7 @@ def test_inelastic_revenue_sits_on_the_upper_bound_and_says_why() -> None:
     result = optimal_price(fit, objective="revenue", current_price=12.0)
     assert result.recommended.price == pytest.approx(17.6)
     assert result.binding_constraints == ("observed_price_range",)
-    assert result.unconstrained_price is None and result.status == 2
+    assert result.unconstrained_price is None and result.optimum == "no_finite_optimum"
     note = result.warnings[codes(result).index("objective_unbounded_above")]
     assert "inelastic" in note.message and "upper bound (observed_price_range)" in note.message
     assert "bound-driven" in note.message
@@ -57,7 +57,7 @@ def test_elastic_revenue_falls_to_the_lower_bound() -> None:
     # Constant elasticity -3: revenue A p^-2 falls with price at every price.
     result = optimal_price(power_fit(-3.0), objective="revenue")
     assert result.recommended.price == pytest.approx(7.2)
-    assert "objective_unbounded_below" in codes(result) and result.status == 2
+    assert "objective_unbounded_below" in codes(result) and result.optimum == "no_finite_optimum"
 
 
 def test_unbounded_objective_without_any_cap_is_an_error() -> None:

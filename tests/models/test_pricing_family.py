@@ -176,7 +176,7 @@ def test_allowed_price_grids_are_searched_exactly() -> None:
         "C": PriceConstraints(price_endings=(0.95,)),
     }
     result = optimal_family_prices(fits, unit_costs=COSTS, constraints=rules, order=[("A", "B")])
-    assert result.method == "grid"
+    assert result.search == "allowed_prices"
     grids = {}
     for sku, fit in fits.items():
         low, high = guard(fit)
@@ -302,7 +302,7 @@ def test_large_family_with_endings_uses_the_local_grid_search() -> None:
     result = optimal_family_prices(
         fits, unit_costs=costs, current_prices=current, constraints=rules
     )
-    assert len(fits) == 10 and result.method == "grid-local"
+    assert len(fits) == 10 and result.search == "allowed_prices_local"
     mine = prices_of(result)
     value = float(family_value(fits, {k: np.array(v) for k, v in mine.items()}, costs))
     for sku, fit in fits.items():

@@ -115,6 +115,20 @@ def test_incremental_refit_skips_untouched_products(
     assert shop.get(f"/v1/jobs/{forced}", headers=headers).json()["counts"]["skipped"] == 0
 
 
+def test_jobs_that_would_do_nothing_are_refused(shop: TestClient, headers: dict[str, str]) -> None:
+    # A spec without force would leave every unchanged history alone and never be used;
+    # a family without products has nothing to work on.
+    spec_only = shop.post(
+        "/v1/jobs", json={"kind": "refit", "spec": {"form": "log-log"}}, headers=headers
+    )
+    assert spec_only.status_code == 422 and "needs force" in spec_only.json()["detail"]
+    nobody = shop.post(
+        "/v1/jobs", json={"kind": "reprice", "scope": {"family": "coffee"}}, headers=headers
+    )
+    assert nobody.status_code == 422
+    assert nobody.json()["detail"] == "no products in family 'coffee'"
+
+
 def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None:
     shop.post("/v1/jobs", json={"kind": "refit", "scope": {"family": "black"}}, headers=headers)
     shop.post(
@@ -123,6 +137,7 @@ def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None
             "kind": "refit",
             "scope": {"skus": ["TEA-004", "NOPE-9"]},
             "spec": {"form": "log-log"},
+            "force": True,
         },
         headers=headers,
     )
