@@ -106,6 +106,10 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
 
     request = json.loads(args.request) if getattr(args, "request", None) else None
     spec = json.loads(args.spec) if getattr(args, "spec", None) else None
+    on_cluster = _on_cluster(args, settings)
+    if on_cluster is None:
+        return 2
+    settings = on_cluster
     engine = make_engine(settings)
     try:
         with session_scope(make_session_factory(engine, writer=True)) as session:
@@ -120,7 +124,11 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
         runner = JobRunner(engine, settings)
         runner.claim(job_id)
         with JobProgressDisplay(f"{args.command} job {job_id}") as display:
-            status = runner.run(job_id, on_progress=display.update)
+            status = runner.run(
+                job_id,
+                on_progress=display.update,
+                announce=lambda text: print(text, file=sys.stderr, flush=True),
+            )
         with session_scope(make_session_factory(engine, writer=False)) as session:
             row = job_store.get_or_raise(session, job_id=job_id)
             print_summary(row)
@@ -128,6 +136,30 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
     finally:
         engine.dispose()
     return 0 if status == job_store.SUCCEEDED and failed == 0 else 1
+
+
+def _on_cluster(args: argparse.Namespace, settings: Settings) -> Settings | None:
+    """The settings with ``--cluster`` applied; None (said why) if they cannot be used."""
+    from pydantic import ValidationError
+
+    from service.core.errors import ClusterUnavailable
+    from service.jobs.cluster import check_database
+
+    try:
+        if args.cluster is not None:
+            settings = Settings.model_validate({**settings.model_dump(), "cluster": args.cluster})
+        if settings.cluster:
+            check_database(settings)
+    except ValidationError:
+        print(
+            f"--cluster {args.cluster!r}: expected tcp://HOST:PORT, local:N or empty",
+            file=sys.stderr,
+        )
+        return None
+    except ClusterUnavailable as exc:
+        print(exc.detail, file=sys.stderr)
+        return None
+    return settings
 
 
 def _jobs(args: argparse.Namespace, settings: Settings) -> int:
@@ -157,6 +189,10 @@ def _worker(args: argparse.Namespace, settings: Settings) -> int:
     from service.jobs.worker import JobRunner, Worker
 
     logs.configure(settings.log_level)
+    on_cluster = _on_cluster(args, settings)
+    if on_cluster is None:
+        return 2
+    settings = on_cluster
     engine = make_engine(settings)
     runner = JobRunner(engine, settings)
     runner.recover(dt.timedelta(seconds=settings.job_stale_seconds))
@@ -218,6 +254,16 @@ def _openapi(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _cluster_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        help="run jobs on a Dask cluster: tcp://HOST:8786 (a running scheduler) or local:N "
+        "(N worker processes started here for each job); empty: in this process. "
+        "Default: MARGINAL_CLUSTER. PostgreSQL only",
+    )
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="marginal", description=__doc__)
     commands = parser.add_subparsers(dest="command", required=True)
@@ -268,6 +314,7 @@ def build_parser() -> argparse.ArgumentParser:
             job.add_argument("--spec", help="one model spec (JSON) for every product")
         else:
             job.add_argument("--request", help="optimal-price request body (JSON) for each")
+        _cluster_option(job)
         job.set_defaults(run=_run_job)
 
     listing = commands.add_parser("jobs", help="list recent jobs")
@@ -280,6 +327,7 @@ def build_parser() -> argparse.ArgumentParser:
         action="store_true",
         help="only run jobs; let other processes start scheduled slots",
     )
+    _cluster_option(worker)
     worker.set_defaults(run=_worker)
 
     report = commands.add_parser(

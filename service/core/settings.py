@@ -73,6 +73,28 @@ class Settings(BaseSettings):
         "reads); 0: the job's own process reads, fits and writes in turn",
     )
     worker_poll_seconds: float = 1.0
+    cluster: str = Field(
+        default="",
+        pattern=r"^(|local:[1-9][0-9]{0,2}|tcp://[^\s/]+:[0-9]{1,5})$",
+        description="Where refit and reprice jobs run: empty = in this process; "
+        "tcp://HOST:8786 = on that Dask scheduler's workers; local:N = on a local cluster "
+        "of N worker processes started for the job. PostgreSQL only",
+    )
+    job_partition_size: int = Field(
+        default=20_000,
+        ge=1,
+        description="Cluster jobs: products per partition (a range of product ids that one "
+        "worker reads, fits and writes)",
+    )
+    cluster_connect_seconds: float = Field(
+        default=10.0, gt=0, description="How long a job waits to reach its Dask scheduler"
+    )
+    cluster_retries: int = Field(
+        default=2,
+        ge=0,
+        description="Times a partition that raised is run again before the job fails (a "
+        "partition whose worker died is rerun by the scheduler regardless)",
+    )
     scheduler_tick_seconds: float = 15.0
     job_stale_seconds: float = Field(
         default=300.0,

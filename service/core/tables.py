@@ -169,6 +169,31 @@ class JobRow(Base):
     finished_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
 
 
+class JobPartitionRow(Base):
+    """One partition of a job run on a cluster: a range of product ids, its state and its
+    own progress. ``batches_done`` is written in the transaction of each batch, so a
+    partition retried after its worker died resumes after the last committed batch."""
+
+    __tablename__ = "job_partitions"
+    __table_args__ = (UniqueConstraint("job_id", "number"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    job_id: Mapped[int] = mapped_column(ForeignKey("jobs.id", ondelete="CASCADE"))
+    number: Mapped[int] = mapped_column(Integer)
+    first_id: Mapped[int] = mapped_column(Integer)
+    last_id: Mapped[int] = mapped_column(Integer)
+    status: Mapped[str] = mapped_column(String(16))
+    attempts: Mapped[int] = mapped_column(Integer, default=0)
+    batches_done: Mapped[int] = mapped_column(Integer, default=0)
+    done: Mapped[int] = mapped_column(Integer, default=0)
+    total: Mapped[int] = mapped_column(Integer, default=0)
+    counts: Mapped[dict[str, int] | None] = mapped_column(JsonDoc)
+    errors: Mapped[list[dict[str, Any]] | None] = mapped_column(JsonDoc)
+    worker: Mapped[str | None] = mapped_column(String(120))
+    message: Mapped[str | None] = mapped_column(String(500))
+    updated_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+
+
 class ScheduleRunRow(Base):
     """One row per (schedule, slot): the unique key makes each slot run exactly once,
     however many schedulers race for it."""

@@ -21,7 +21,7 @@ from sqlalchemy.orm import Session
 from models import DemandFit, FitFailure, ModelSpec
 from service.core import json_text
 from service.core.settings import Settings
-from service.core.tables import FitRow, utcnow
+from service.core.tables import FitRow, ProductRow, utcnow
 from service.estimation.gates import ACTIVE, REJECTED, SUPERSEDED, GateResult, quality_gates
 
 Outcome = Literal["activated", "rejected", "failed"]
@@ -165,6 +165,17 @@ def activate(
     ``texts`` are the fits' :func:`encode_result`, when the caller made them already.
     """
     ids = [t.product_id for t in targets]
+    if session.get_bind().dialect.name == "postgresql":
+        # Two jobs over the same products take turns, product by product: each locks its
+        # batch's products (in id order, so neither waits on the other in a cycle) before
+        # reading their active fits, and holds them until its activations are committed.
+        # (SQLite runs one writing transaction at a time anyway.)
+        session.execute(
+            select(ProductRow.id)
+            .where(ProductRow.id.in_(ids))
+            .order_by(ProductRow.id)
+            .with_for_update()
+        )
     active = {
         r.product_id: (r.id, r.holdout_wape)
         for r in session.execute(

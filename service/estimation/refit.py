@@ -19,7 +19,7 @@ from collections import deque
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import Text, cast, func, select
+from sqlalchemy import Text, cast, func, or_, select, true
 from sqlalchemy.orm import Session, sessionmaker
 
 from models import DemandFit, FitFailure, History, ModelSpec, fit_many
@@ -37,11 +37,23 @@ from service.jobs import queue as jobs
 log = logging.getLogger(__name__)
 
 
-def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress) -> list[Candidate]:
-    """Products to fit now; counts skipped and unknown ones into ``progress``."""
+def select_candidates(
+    session: Session,
+    *,
+    job: JobRow,
+    progress: jobs.Progress,
+    within: tuple[int, int] | None = None,
+) -> list[Candidate]:
+    """Products to fit now; counts skipped and unknown ones into ``progress``.
+
+    ``within``: only the product ids in this range (a partition; unknown skus are the
+    job's to count). Fits made by this job itself do not make a product fresh, so a
+    partition run again selects the same products as its first run.
+    """
     options = job.options or {}
     latest_fit = (
         select(FitRow.product_id, func.max(FitRow.created_at).label("at"))
+        .where(or_(FitRow.job_id.is_(None), FitRow.job_id != job.id))
         .group_by(FitRow.product_id)
         .subquery()
     )
@@ -57,10 +69,11 @@ def select_candidates(session: Session, *, job: JobRow, progress: jobs.Progress)
         )
         .outerjoin(latest_fit, latest_fit.c.product_id == ProductRow.id)
         .where(jobs.scope_filter(job.scope))
+        .where(true() if within is None else ProductRow.id.between(*within))
         .order_by(ProductRow.sku)
     ).all()
     found = {r.sku for r in rows}
-    for sku in job.scope.get("skus", []):
+    for sku in job.scope.get("skus", []) if within is None else []:
         if sku not in found:
             progress.total += 1
             progress.done += 1

@@ -9,6 +9,7 @@ import datetime as dt
 import logging
 import threading
 import time
+from collections.abc import Callable
 
 from sqlalchemy import Engine
 
@@ -18,6 +19,8 @@ from service.core.errors import failure_reason
 from service.core.settings import Settings
 from service.estimation.refit import run_refit
 from service.jobs import queue as jobs
+from service.jobs.cluster import run_on_cluster
+from service.jobs.partitions import PartitionReport
 from service.pricing.reprice import run_reprice
 
 logger = logging.getLogger("marginal.jobs")
@@ -30,6 +33,8 @@ class JobRunner:
         self.settings = settings
         self.reads = make_session_factory(engine, writer=False)
         self.writes = make_session_factory(engine, writer=True)
+        # What the workers of the last cluster job reported (time, memory), for benchmarks.
+        self.cluster_reports: list[PartitionReport] = []
 
     def claim(self, job_id: int | None = None) -> int | None:
         with session_scope(self.writes) as session:
@@ -43,14 +48,29 @@ class JobRunner:
             logger.warning("job %s was interrupted and is marked failed", job_id)
         return lost
 
-    def run(self, job_id: int, on_progress: jobs.ProgressCallback | None = None) -> str:
-        """Run a claimed job to the end; returns its final status."""
+    def run(
+        self,
+        job_id: int,
+        on_progress: jobs.ProgressCallback | None = None,
+        announce: Callable[[str], None] | None = None,
+    ) -> str:
+        """Run a claimed job to the end, here or on the cluster of the settings; returns
+        its final status. ``announce`` is told where a cluster job runs (its dashboard)."""
         with session_scope(self.reads) as session:
             kind = jobs.get_or_raise(session, job_id=job_id).kind
         started = time.perf_counter()
         logger.info("job %s (%s) started", job_id, kind)
         try:
-            if kind == "refit":
+            if self.settings.cluster:
+                run = run_on_cluster(
+                    (self.reads, self.writes),
+                    job_id=job_id,
+                    settings=self.settings,
+                    on_progress=on_progress,
+                    announce=announce,
+                )
+                progress, self.cluster_reports = run.progress, run.reports
+            elif kind == "refit":
                 progress = run_refit(
                     (self.reads, self.writes),
                     job_id=job_id,
