@@ -131,6 +131,15 @@ def install(app: FastAPI) -> None:
 
     @app.exception_handler(RequestValidationError)
     async def _validation_error(request: Request, exc: RequestValidationError) -> JSONResponse:
+        malformed = [e for e in exc.errors() if e.get("type") == "json_invalid"]
+        if malformed:
+            where = malformed[0].get("ctx", {}).get("error", "")
+            return problem_response(
+                BAD_REQUEST,
+                "the body is not valid JSON" + (f" ({where})" if where else ""),
+                errors=[ErrorItem(field="body", message="not valid JSON")],
+                instance=request.url.path,
+            )
         items = [
             ErrorItem(
                 field=_location(tuple(e.get("loc", ()))), message=str(e.get("msg", "invalid"))
