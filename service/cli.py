@@ -127,7 +127,7 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
             status = runner.run(
                 job_id,
                 on_progress=display.update,
-                announce=lambda text: print(text, file=sys.stderr, flush=True),
+                announce=display.note,
             )
         with session_scope(make_session_factory(engine, writer=False)) as session:
             row = job_store.get_or_raise(session, job_id=job_id)

@@ -138,8 +138,8 @@ def run_on_cluster(
         logger.info("job %s on %s: dashboard %s", job_id, settings.cluster, client.dashboard_link)
         if announce:
             announce(
-                f"{kind} job {job_id}: {len(ranges)} partitions on {settings.cluster} "
-                f"({workers} workers); dashboard: {client.dashboard_link}"
+                f"on the cluster {settings.cluster} ({workers} workers), partitions: "
+                f"{len(ranges)}; Dask dashboard: {client.dashboard_link}"
             )
         tasks = [
             partitions.PartitionTask(

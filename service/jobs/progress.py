@@ -58,6 +58,13 @@ class JobProgressDisplay:
                 flush=True,
             )
 
+    def note(self, text: str) -> None:
+        """A line above the bar (or among the progress lines), e.g. where a job runs."""
+        if self.bar is not None:
+            self.bar.write(text, file=self.stream)
+        else:
+            print(f"{self.title}: {text}", file=self.stream, flush=True)
+
     def __exit__(
         self, kind: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
     ) -> None:

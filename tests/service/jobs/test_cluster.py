@@ -90,7 +90,9 @@ def cluster_settings(db: Database, **fields: Any) -> Settings:
     return db.settings.model_copy(update={"cluster": "local:2", **fields})
 
 
-def test_cluster_refit_and_reprice_equal_the_in_process_jobs(db: Database) -> None:
+def test_cluster_refit_and_reprice_equal_the_in_process_jobs(
+    db: Database, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
     needs_postgres(db)
     demo.load(db.settings, seed=7)
     small = {"job_batch_size": 4}
@@ -125,16 +127,21 @@ def test_cluster_refit_and_reprice_equal_the_in_process_jobs(db: Database) -> No
     assert [s.status for s in states] == ["succeeded"] * 3
     assert sum(s.done for s in states) == sum(s.total for s in states) == 40
 
-    # Recommendations from the same fits: the same prices, product for product.
-    fit_ids = dict(
-        execute(
-            on_cluster,
-            "SELECT p.sku, f.id FROM fits f JOIN products p "
-            "ON p.id = f.product_id WHERE f.status = 'active'",
-        )
+    # Recommendations from the same fits, through the command line: the same prices,
+    # product for product, with the progress lines, the dashboard's link and the summary.
+    active = "SELECT p.sku, f.id FROM fits f JOIN products p ON p.id = f.product_id"
+    fit_ids = dict(execute(on_cluster, f"{active} WHERE f.status = 'active'"))
+    monkeypatch.setattr(
+        "service.cli.get_settings", lambda: on_cluster.model_copy(update={"cluster": ""})
     )
-    job_id, status, _ = run_job(on_cluster, "reprice")
-    assert status == "succeeded", job_row(on_cluster, job_id)["message"]
+    code = main(["reprice", "--all", "--cluster", "local:2"])
+    shown = capsys.readouterr()
+    assert code == (0 if priced_job["counts"]["failed"] == 0 else 1)
+    assert "on the cluster local:2 (2 workers), partitions: 3" in shown.err
+    assert "Dask dashboard: http://127.0.0.1:" in shown.err
+    assert "40/40" in shown.err
+    [(job_id,)] = execute(on_cluster, "SELECT max(id) FROM jobs")
+    assert f"reprice job {job_id}: succeeded  (40/40 products)" in shown.out
     assert job_row(on_cluster, job_id) == priced_job
     repriced = execute(
         on_cluster,
@@ -232,9 +239,12 @@ def test_sqlite_refuses_a_cluster(
     assert status == "failed"
     assert "a cluster job needs PostgreSQL" in job["message"]
     assert job["done"] == 0
-    monkeypatch.setenv("MARGINAL_DATABASE_URL", db.settings.database_url)
+    monkeypatch.setattr("service.cli.get_settings", lambda: db.settings)
     assert main(["refit", "--all", "--cluster", "local:2"]) == 2
     assert "a cluster job needs PostgreSQL" in capsys.readouterr().err
+    assert main(["refit", "--all", "--cluster", "elsewhere"]) == 2
+    assert "expected tcp://HOST:PORT, local:N or empty" in capsys.readouterr().err
+    assert execute(db.settings, "SELECT count(*) FROM jobs")[0][0] == 1  # none queued
 
 
 def test_a_partition_run_again_resumes_and_a_second_run_stops(db: Database) -> None:
