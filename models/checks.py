@@ -14,6 +14,7 @@ import numpy as np
 
 from models._typing import FloatArray
 from models.design import Design, Term
+from models.engine import DroppedTerm
 from models.estimate import Estimate
 from models.result import FitWarning
 
@@ -27,6 +28,8 @@ ZERO_UNITS_DROPPED: Final = "zero_units_dropped"
 MISSING_VALUES_DROPPED: Final = "missing_values_dropped"
 TERMS_DROPPED: Final = "terms_dropped"
 WEAK_INSTRUMENT: Final = "weak_instrument"
+NEAR_COLLINEAR: Final = "near_collinear"
+WINDOW_EXCLUDED: Final = "window_excluded"
 
 WARNING_CODES: Final = (
     OWN_PRICE_POSITIVE,
@@ -39,6 +42,8 @@ WARNING_CODES: Final = (
     MISSING_VALUES_DROPPED,
     TERMS_DROPPED,
     WEAK_INSTRUMENT,
+    NEAR_COLLINEAR,
+    WINDOW_EXCLUDED,
 )
 
 SIGNIFICANCE: Final = 0.05
@@ -47,6 +52,12 @@ MIN_OBS_PER_TERM: Final = 10  # common practice, no source
 MIN_PRICE_CV: Final = 0.02  # rule of thumb (ours): below a 2% coefficient of variation
 VIF_LIMIT: Final = 10.0  # common practice (often attributed to Marquardt 1970)
 """Variance inflation factor above which a term is flagged as collinear with others."""
+NEAR_COLLINEAR_CONDITION: Final = 1e7  # rule of thumb (ours): about log10(k) digits lost
+"""Scaled condition number above which a full-rank design is called nearly collinear.
+
+Rounding in the data can move the estimates by about the condition number times the
+relative rounding; above 1e7 fewer than nine of double precision's sixteen digits are safe.
+"""
 WEAK_INSTRUMENT_F: Final = 10.0  # Staiger & Stock (1997) rule of thumb
 """First-stage F below which the instruments of a two-stage fit count as weak."""
 
@@ -58,7 +69,7 @@ def price_variation(price: FloatArray) -> float:
 
 
 def fit_warnings(
-    design: Design, estimate: Estimate, dropped: Sequence[Term] = ()
+    design: Design, estimate: Estimate, dropped: Sequence[DroppedTerm] = ()
 ) -> tuple[FitWarning, ...]:
     """All warnings that apply to a fit of ``design``."""
     own = [t.kind for t in design.terms].index("own_price")
@@ -76,6 +87,9 @@ def fit_warnings(
         n_missing=design.n_missing,
         dropped=dropped,
         first_stage_f=estimate.first_stage_f,
+        condition_number=estimate.condition_number,
+        n_window_excluded=design.n_window_excluded,
+        window_excluded_from=design.window_excluded_from,
     )
 
 
@@ -92,8 +106,11 @@ def warnings_from_figures(
     n_window: int,
     n_zero_dropped: int,
     n_missing: int,
-    dropped: Sequence[Term] = (),
+    dropped: Sequence[DroppedTerm] = (),
     first_stage_f: float | None = None,
+    condition_number: float | None = None,
+    n_window_excluded: int = 0,
+    window_excluded_from: str | None = None,
 ) -> tuple[FitWarning, ...]:
     """The warnings of a fit, from its figures (``vifs`` in term order, NaN where none)."""
     found: list[FitWarning] = []
@@ -165,12 +182,28 @@ def warnings_from_figures(
             )
         )
     if dropped:
-        names = ", ".join(t.name for t in dropped)
+        found.append(FitWarning(TERMS_DROPPED, dropped_terms_text(dropped)))
+    if (
+        not dropped
+        and condition_number is not None
+        and math.isfinite(condition_number)
+        and condition_number > NEAR_COLLINEAR_CONDITION
+    ):
         found.append(
             FitWarning(
-                TERMS_DROPPED,
-                "Dropped because they never vary or duplicate other terms in this window: "
-                f"{names}.",
+                NEAR_COLLINEAR,
+                f"The terms are nearly collinear (scaled condition number {condition_number:.3g}, "
+                f"above {NEAR_COLLINEAR_CONDITION:.0e}): the model was fitted as given, but "
+                "small changes in the data can move the estimates a lot.",
+            )
+        )
+    if n_window_excluded:
+        found.append(
+            FitWarning(
+                WINDOW_EXCLUDED,
+                f"{n_window_excluded} older periods (from {window_excluded_from}) lie outside "
+                f"the window of the {n_window} most recent periods and were not used; "
+                "raise window_periods to fit on them.",
             )
         )
     if first_stage_f is not None and first_stage_f < WEAK_INSTRUMENT_F:
@@ -182,6 +215,21 @@ def warnings_from_figures(
             )
         )
     return tuple(found)
+
+
+def dropped_terms_text(dropped: Sequence[DroppedTerm]) -> str:
+    """Why each dropped term was left out: it never varies, or which terms it combines."""
+    reasons = []
+    for item in dropped:
+        if item.partners:
+            reasons.append(
+                f"{item.term.name} is a linear combination of {', '.join(item.partners)}"
+            )
+        else:
+            reasons.append(f"{item.term.name} never varies")
+    return (
+        "Terms dropped, since the fitted periods cannot separate them: " + "; ".join(reasons) + "."
+    )
 
 
 def equation_text(form: str, terms: Sequence[Term], params: Sequence[float]) -> str:

@@ -8,7 +8,7 @@ unusable for fitting, so nothing is dropped silently.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Final
 
 import numpy as np
@@ -92,6 +92,8 @@ class Design:
     n_stockouts: int
     n_missing: int
     n_zero_dropped: int
+    n_window_excluded: int = 0
+    window_excluded_from: str | None = None
 
     @property
     def n_usable(self) -> int:
@@ -104,21 +106,8 @@ class Design:
     def without_terms(self, drop: set[int]) -> Design:
         """The same design without some columns (rank-deficient terms)."""
         keep = [j for j in range(len(self.terms)) if j not in drop]
-        return Design(
-            sku=self.sku,
-            form=self.form,
-            terms=tuple(self.terms[j] for j in keep),
-            periods=self.periods,
-            regressors=self.regressors[:, keep],
-            response=self.response,
-            units=self.units,
-            usable=self.usable,
-            variables=self.variables,
-            instruments=self.instruments,
-            n_window=self.n_window,
-            n_stockouts=self.n_stockouts,
-            n_missing=self.n_missing,
-            n_zero_dropped=self.n_zero_dropped,
+        return replace(
+            self, terms=tuple(self.terms[j] for j in keep), regressors=self.regressors[:, keep]
         )
 
 
@@ -254,9 +243,12 @@ def build_design(history: History, spec: ModelSpec, form: str) -> Design:
         inst_cols = []
         for name, values in zip(spec.instruments, instrument_raw, strict=True):
             values = values[keep]
-            if form in LOG_PRICE_FORMS:
+            if name in spec.log_instruments:
                 if np.any(values <= 0.0):
-                    raise UnusableDataError(f"{history.sku}: instrument {name} must be positive")
+                    raise UnusableDataError(
+                        f"{history.sku}: instrument {name} has non-positive values, "
+                        "so it cannot enter as a log (leave it out of log_instruments)"
+                    )
                 values = np.log(values)
             inst_cols.append(values)
         instruments = np.column_stack(inst_cols)
@@ -276,4 +268,6 @@ def build_design(history: History, spec: ModelSpec, form: str) -> Design:
         n_stockouts=n_stockouts,
         n_missing=n_missing,
         n_zero_dropped=int((~usable).sum()),
+        n_window_excluded=start,
+        window_excluded_from=str(history.periods[0]) if start else None,
     )

@@ -120,15 +120,45 @@ def critical_value(fit: DemandFit, level: float) -> float:
     return float(stats.t.ppf(q, fit.df_resid) if fit.use_t else stats.norm.ppf(q))
 
 
+def own_price_class(value: float, low: float, high: float) -> str:
+    """Plain words for an own-price elasticity and its 95% interval ``[low, high]``.
+
+    ``wrong sign`` when the whole interval lies above 0 (demand rising with price);
+    ``elastic`` when it lies below -1 and ``inelastic`` when it lies between -1 and 0;
+    ``unit-elastic`` when it lies within ``UNIT_ELASTIC_BAND`` of -1; otherwise
+    (the interval spans -1, or spans 0 with the estimate above it) ``unclear``.
+    Without a finite interval the estimate alone decides, as before intervals existed.
+
+    Examples
+    --------
+    >>> own_price_class(-3.35, -11.9, 5.24)
+    'unclear'
+    >>> own_price_class(-2.1, -2.6, -1.6), own_price_class(-0.5, -0.8, -0.2)
+    ('elastic', 'inelastic')
+    >>> own_price_class(0.6, 0.2, 1.0)
+    'wrong sign'
+    """
+    if not (np.isfinite(low) and np.isfinite(high)):
+        low = high = value
+    if low > 0.0:
+        return "wrong sign"
+    band = UNIT_ELASTIC_BAND
+    if -1.0 - band <= low and high <= -1.0 + band:
+        return "unit-elastic"
+    if high < -1.0:
+        return "elastic"
+    if low > -1.0 and value <= 0.0:
+        return "inelastic"
+    return "unclear"
+
+
 def _classify(
     kind: str, name: str, value: float, low: float, high: float, income_like: set[str]
 ) -> str | None:
     if not np.isfinite(value):
         return None
     if kind == "own":
-        if abs(abs(value) - 1.0) <= UNIT_ELASTIC_BAND:
-            return "unit-elastic"
-        return "elastic" if abs(value) > 1.0 else "inelastic"
+        return own_price_class(value, low, high)
     if kind == "cross":
         if low > 0.0:
             return "substitute"

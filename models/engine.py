@@ -16,11 +16,11 @@ from typing import Final
 
 import numpy as np
 
-from models._typing import FloatArray
 from models.design import Design, Term
 from models.errors import InsufficientDataError, UnusableDataError
 from models.estimate import Estimate, estimate_from_stack, fit_iv, fit_poisson
-from models.ols import RANK_VIF_LIMIT, fit_ols_stack
+from models.ols import fit_ols_stack
+from models.rank import redundant_columns
 from models.spec import ModelSpec
 
 MIN_RESIDUAL_DF: Final = 3
@@ -33,12 +33,23 @@ def required_obs(n_terms: int) -> int:
 
 
 @dataclass(frozen=True)
+class DroppedTerm:
+    """A term left out because the design cannot estimate it beside the others.
+
+    ``partners`` names the terms it is a linear combination of; empty when it never varies.
+    """
+
+    term: Term
+    partners: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
 class FittedDesign:
     """A design (without any dropped terms) and its estimate."""
 
     design: Design
     estimate: Estimate
-    dropped: tuple[Term, ...]
+    dropped: tuple[DroppedTerm, ...]
     kept: tuple[int, ...]
 
 
@@ -59,42 +70,20 @@ def check_size(design: Design) -> None:
         raise InsufficientDataError(design.sku, design.n_usable, need, detail)
 
 
-def collinear_columns(design: FloatArray) -> set[int]:
-    """Columns (never 0, the intercept) that are constant or nearly a combination of earlier ones.
-
-    Columns are taken in order, so the own price (column 1) is kept whenever it varies;
-    a column is dropped when its variance inflation on the kept ones would exceed
-    ``RANK_VIF_LIMIT``.
-    """
-    centred = design[:, 1:] - design[:, 1:].mean(axis=0)
-    magnitude = np.maximum(np.abs(design[:, 1:]).max(axis=0), np.finfo(float).tiny)
-    basis = np.empty((design.shape[0], 0))
-    drop: set[int] = set()
-    for j in range(centred.shape[1]):
-        column = centred[:, j]
-        size = float(np.linalg.norm(column))
-        if size <= 1e-13 * np.sqrt(design.shape[0]) * magnitude[j]:
-            drop.add(j + 1)
-            continue
-        rest = column - basis @ (basis.T @ column)
-        rest = rest - basis @ (basis.T @ rest)
-        if np.linalg.norm(rest) < size / np.sqrt(RANK_VIF_LIMIT):
-            drop.add(j + 1)
-            continue
-        basis = np.column_stack([basis, rest / np.linalg.norm(rest)])
-    return drop
-
-
-def _reduce(design: Design) -> tuple[Design, tuple[Term, ...], tuple[int, ...]]:
+def _reduce(design: Design) -> tuple[Design, tuple[DroppedTerm, ...], tuple[int, ...]]:
     x, _ = design.fitting_rows()
-    drop = collinear_columns(x)
-    if 1 in drop:
+    redundant = redundant_columns(x)
+    if any(item.index == 1 for item in redundant):
         raise UnusableDataError(
-            f"{design.sku}: the own price does not vary in the fitted periods, so its effect "
-            "cannot be estimated"
+            f"{design.sku}: the own price does not vary independently of the other terms in "
+            "the fitted periods, so its effect cannot be estimated"
         )
+    drop = {item.index for item in redundant}
     kept = tuple(j for j in range(len(design.terms)) if j not in drop)
-    dropped = tuple(design.terms[j] for j in sorted(drop))
+    dropped = tuple(
+        DroppedTerm(design.terms[item.index], tuple(design.terms[j].name for j in item.partners))
+        for item in redundant
+    )
     return (design.without_terms(drop) if drop else design), dropped, kept
 
 
@@ -110,7 +99,7 @@ def _estimate(design: Design, spec: ModelSpec, method: str) -> Estimate:
 
 
 def fit_design(design: Design, spec: ModelSpec) -> FittedDesign:
-    """Single-product path: size check, rank check, QR solve."""
+    """Single-product path: size check, rank decision by pivoted QR, refined QR solve."""
     check_size(design)
     reduced, dropped, kept = _reduce(design)
     if dropped:
@@ -121,8 +110,8 @@ def fit_design(design: Design, spec: ModelSpec) -> FittedDesign:
 def fit_designs(designs: Sequence[Design], spec: ModelSpec) -> list[FittedDesign | Exception]:
     """Batched path: stack OLS designs with equal fitting length; others one by one.
 
-    Products whose stack member is rank-deficient are refitted alone without the
-    offending terms, so one degenerate product never stops the batch.
+    Products the stacked solver flags are refitted alone, where a pivoted QR decides
+    which terms (if any) to drop, so one degenerate product never stops the batch.
     """
     results: list[FittedDesign | Exception] = [ValueError("not fitted")] * len(designs)
     groups: dict[tuple[int, int], list[int]] = defaultdict(list)

@@ -17,10 +17,9 @@ from models.ols import (
     durbin_watson,
     fit_ols_stack,
     jarque_bera_p,
-    newey_west_lags,
-    sandwich_meat,
     t_two_sided_p,
 )
+from models.sandwich import LEVERAGE_KINDS, newey_west_lags, sandwich_meat
 
 
 @dataclass(frozen=True)
@@ -126,7 +125,7 @@ def _sandwich(
         design[None],
         resid[None],
         cov_type=cov_type,
-        leverage=None if leverage is None else leverage[None],
+        leverage=None if leverage is None or cov_type not in LEVERAGE_KINDS else leverage[None],
         hac_lags=hac_lags,
     )[0]
     with np.errstate(invalid="ignore"):  # a NaN meat (see sandwich_meat) stays NaN
@@ -155,9 +154,9 @@ def fit_poisson(
     """Poisson pseudo-maximum likelihood by iteratively reweighted least squares.
 
     Zero-unit periods are kept (Santos Silva & Tenreyro 2006). ``classical`` uses
-    the model-based information matrix (scale 1, as statsmodels GLM); ``hc3`` and
-    ``hac`` use sandwich forms on the score ``x (y - mu)``, HC3 with the leverages of
-    the weighted design.
+    the model-based information matrix (scale 1, as statsmodels GLM); ``hc0``-``hc3``
+    and ``hac`` use sandwich forms on the score ``x (y - mu)`` (:mod:`models.sandwich`),
+    HC2 and HC3 with the leverages of the weighted design.
     """
     n, k = design.shape
     mu = (units + units.mean()) / 2.0
@@ -179,12 +178,10 @@ def fit_poisson(
     resid = units - mu
     if cov_type == "classical":
         cov = info_inv
-    elif cov_type == "hc3":
+    else:
         weighted = design * np.sqrt(mu)[:, None]
         leverage = np.einsum("ij,jk,ik->i", weighted, info_inv, weighted)
-        cov = _sandwich(design, resid, info_inv, "hc3", None, leverage)
-    else:
-        cov = _sandwich(design, resid, info_inv, "hac", hac_lags)
+        cov = _sandwich(design, resid, info_inv, cov_type, hac_lags, leverage)
     df_resid = n - k
     null_deviance = _poisson_deviance(units, np.full(n, units.mean()))
     llf = float(np.sum(special.xlogy(units, mu) - mu - special.gammaln(units + 1.0)))
@@ -256,11 +253,10 @@ def fit_iv(
     bread = _scaled_inverse_gram(projected)
     if cov_type == "classical":
         cov = sigma2 * bread
-    elif cov_type == "hc3":
-        leverage = np.einsum("ij,jk,ik->i", projected, bread, projected)
-        cov = _sandwich(projected, resid, bread, "hc3", None, leverage)
     else:
-        cov = _sandwich(projected, resid, bread, "hac", hac_lags)
+        # HC2 and HC3 take the leverages of the second-stage (projected) design.
+        leverage = np.einsum("ij,jk,ik->i", projected, bread, projected)
+        cov = _sandwich(projected, resid, bread, cov_type, hac_lags, leverage)
 
     augmented = fit_ols_stack(
         np.column_stack([design, first_resid])[None],

@@ -120,6 +120,8 @@ def _assemble(
             n_zero_units_dropped=design.n_zero_dropped,
             n_missing_dropped=design.n_missing,
             holdout_periods=holdout_periods,
+            n_window_excluded=design.n_window_excluded,
+            window_excluded_from=design.window_excluded_from,
         ),
         smearing=smearing_factor(estimate.resid) if log_form else None,
         candidate_scores=candidate_scores,

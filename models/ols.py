@@ -5,10 +5,12 @@ columns ``k`` (column 0 is the intercept). The regressors are centred, and the
 centred cross-product is scaled to unit diagonal before solving, which makes it a
 correlation matrix: Longley's design condition number drops from 5e9 to about
 1e2 (1.2e4 for the cross-product), so normal equations followed by one step of
-iterative refinement keep the certified digits while staying fully vectorised.
-``method="qr"`` solves the same centred, scaled system by Householder QR instead,
-factoring the centred regressors together with the centred response so that Q is
-never formed.
+iterative refinement are accurate enough for fits that only predict (hold-out scores).
+``method="qr"`` (every reported fit) solves the same centred, scaled system by
+Householder QR and then refines the solution against the original design with
+double-double residuals (:mod:`models.refine`), which reaches the NIST StRD certified
+digits. Neither decides a rank: members a solver cannot settle are flagged for the
+single-product path, which decides by pivoted QR (:mod:`models.rank`).
 
 Classical standard errors are computed in the centred coordinates, where the
 cross-product matrix is block diagonal, and mapped back to the original
@@ -29,18 +31,16 @@ import numpy as np
 from scipy import special
 
 from models._typing import BoolArray, FloatArray, IntArray
+from models.refine import refine
+from models.sandwich import newey_west_lags, robust_root
 
-RANK_VIF_LIMIT: Final = 1e10
-"""A regressor whose variance inflation exceeds this is treated as exactly collinear."""
-
-
-def newey_west_lags(n_obs: int) -> int:
-    """Newey-West lag truncation ``floor(4 (n / 100) ** (2 / 9))``.
-
-    The plug-in rule of thumb of Newey & West (1994, Review of Economic Studies 61,
-    631-653); it gives 4 lags for two years of weekly data.
-    """
-    return int(np.floor(4.0 * (n_obs / 100.0) ** (2.0 / 9.0)))
+RANK_TOLERANCE: Final = 1e-13
+"""Relative size of a QR diagonal below which the stacked solver hands a product to the
+single-product path, where a pivoted QR decides its rank (a routing flag, never a rank
+decision by itself)."""
+NORMAL_GRAM_LIMIT: Final = 1e8
+"""Largest diagonal of the inverse unit-diagonal cross-product the normal equations are
+trusted with; beyond it the product takes the QR path."""
 
 
 def t_two_sided_p(tvalues: FloatArray, df: int) -> FloatArray:
@@ -55,8 +55,9 @@ class OLSStack:
 
     ``vif``, ``condition_number``, ``durbin_watson``, ``breusch_pagan_p``,
     ``jarque_bera_p``, ``aic``, ``bic`` and ``llf`` are computed on first access.
-    ``rank_deficient`` lists products whose design is (nearly) singular; their figures
-    are not valid and they must be refitted without the offending terms.
+    ``rank_deficient`` lists products this solver could not settle (a constant column or
+    a design too close to singular for it); their figures are not valid and they go to the
+    single-product path, whose pivoted QR decides which terms, if any, to drop.
     """
 
     params: FloatArray
@@ -109,22 +110,19 @@ class OLSStack:
     def condition_number(self) -> FloatArray:
         """Condition number of the design scaled to unit column length (Belsley, Kuh & Welsch 1980).
 
-        The uncentred cross-product is rebuilt from its centred parts (a sum of
-        positive terms, so nothing cancels), scaled to unit diagonal, and its extreme
-        eigenvalues give the squared condition number.
+        The ratio of the extreme singular values of the design (intercept included,
+        uncentred) with every column scaled to unit length; computed from the design
+        itself, not its cross-product, so that it stays meaningful up to about 1e15.
         """
-        means, n = self._means, self.n_obs
+        means, centred = self._means, self._centred
         b, p = means.shape
-        cross = np.empty((b, p + 1, p + 1))
-        cross[:, 0, 0] = n
-        cross[:, 0, 1:] = n * means
-        cross[:, 1:, 0] = n * means
-        cross[:, 1:, 1:] = self._cross
-        cross[:, 1:, 1:] += n * means[:, :, None] * means[:, None, :]
-        d = np.sqrt(np.diagonal(cross, axis1=1, axis2=2))
-        eig = np.linalg.eigvalsh(cross / d[:, :, None] / d[:, None, :])
+        n = centred.shape[2]
+        design = np.ones((b, n, p + 1))
+        design[:, :, 1:] = (centred + means[:, :, None]).transpose(0, 2, 1)
+        design /= np.linalg.norm(design, axis=1, keepdims=True)
         with np.errstate(divide="ignore", invalid="ignore"):
-            result: FloatArray = np.sqrt(eig[:, -1] / np.maximum(eig[:, 0], 0.0))
+            singular = np.linalg.svd(design, compute_uv=False)
+            result: FloatArray = singular[:, 0] / singular[:, -1]
         return result
 
     @cached_property
@@ -177,75 +175,39 @@ def _safe_inverse(gram: FloatArray) -> tuple[FloatArray, BoolArray]:
         return inverse, failed
 
 
-def sandwich_meat(
-    scores_design: FloatArray,
-    resid: FloatArray,
-    *,
-    cov_type: str,
-    leverage: FloatArray | None = None,
-    hac_lags: int | None = None,
-) -> FloatArray:
-    """The middle of a sandwich covariance for a stack, ``sum_t w_t x_t x_t'``-style.
-
-    ``hc3`` weights squared residuals by ``1 / (1 - h)^2`` (MacKinnon & White 1985);
-    ``hac`` uses Bartlett weights up to ``hac_lags`` (Newey & West 1987) with the
-    small-sample factor ``n / (n - k)``, as statsmodels' ``use_correction=True``.
-    """
-    n, k = scores_design.shape[1], scores_design.shape[2]
-    if cov_type == "hc3":
-        if leverage is None:
-            raise ValueError("hc3 needs the leverages")
-        with np.errstate(divide="ignore", invalid="ignore"):
-            # A period with leverage 1 (a flag set in one period only) has no HC3 weight:
-            # the figures that depend on it become NaN rather than a misleading number.
-            omega = resid**2 / (1.0 - leverage) ** 2
-            meat_hc3: FloatArray = np.matmul(
-                scores_design.transpose(0, 2, 1), scores_design * omega[:, :, None]
-            )
-        return meat_hc3
-    if cov_type == "hac":
-        lags = newey_west_lags(n) if hac_lags is None else hac_lags
-        scores = scores_design * resid[:, :, None]
-        meat = np.matmul(scores.transpose(0, 2, 1), scores)
-        for lag in range(1, min(lags, n - 1) + 1):
-            weight = 1.0 - lag / (lags + 1.0)
-            cross = np.matmul(scores[:, lag:, :].transpose(0, 2, 1), scores[:, :-lag, :])
-            meat += weight * (cross + cross.transpose(0, 2, 1))
-        corrected: FloatArray = meat * (n / (n - k))
-        return corrected
-    raise ValueError(f"unknown robust covariance {cov_type!r}")
-
-
 @dataclass(frozen=True)
 class _Solution:
-    """The least-squares solution of a stack in centred coordinates (shared by every caller).
+    """The least-squares solution of a stack (shared by every caller).
 
     ``centred`` holds one row per regressor, (b, p, n), so that element-wise work runs
-    along whole periods.
+    along whole periods. ``flagged`` marks members whose figures are not to be trusted
+    here: a constant or non-finite column, or a design too close to singular for this
+    solver; the single-product path decides their rank by pivoted QR.
     """
 
     means: FloatArray
     centred: FloatArray
     scale: FloatArray
-    y_mean: FloatArray
     yc: FloatArray
-    slopes: FloatArray
+    params: FloatArray
     resid: FloatArray
     cross: FloatArray
     cross_inv: FloatArray
-    deficient: BoolArray
+    flagged: BoolArray
 
     @property
-    def params(self) -> FloatArray:
-        b, p = self.slopes.shape
-        params = np.empty((b, p + 1))
-        params[:, 1:] = self.slopes
-        params[:, 0] = self.y_mean - np.einsum("bj,bj->b", self.means, self.slopes)
-        return params
+    def slopes(self) -> FloatArray:
+        return self.params[:, 1:]
 
 
 def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
-    """Centre, scale to unit diagonal and solve; flag (nearly) singular members."""
+    """Centre, scale to unit diagonal and solve; flag members this solver cannot settle.
+
+    ``method="qr"`` factors the centred, unit-length regressors by Householder QR, builds
+    the thin QR factors of the original design from them (the intercept's column is
+    orthogonal to centred ones) and refines the solution against the original design
+    with double-double residuals (:mod:`models.refine`).
+    """
     b, n, k = design.shape
     p = k - 1
     if p < 1 or n - k < 1:
@@ -253,23 +215,21 @@ def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
     # One row per column: free when the caller built the design that way.
     columns = np.ascontiguousarray(design.transpose(0, 2, 1))
     means = columns[:, 1:, :].mean(axis=2)
-    # The centred regressors and the centred response share one array: the QR method
-    # factors them together.
-    augmented = np.empty((b, k, n))
-    centred = augmented[:, :p, :]
-    np.subtract(columns[:, 1:, :], means[:, :, None], out=centred)
+    centred = columns[:, 1:, :] - means[:, :, None]
     cross = np.matmul(centred, centred.transpose(0, 2, 1))
     scale = np.sqrt(np.diagonal(cross, axis1=1, axis2=2))
     constant = ~(scale > 1e-13 * np.sqrt(n) * np.abs(means)) | (scale == 0.0)
     bad = constant.any(axis=1) | ~np.isfinite(scale).all(axis=1)
+    bad |= ~np.isfinite(response).all(axis=1)
     if bad.any():
         # Keep the stack solvable; flagged products are refitted without the bad terms.
         centred[bad] = _placeholder_columns(n, p).T
         cross[bad] = np.eye(p)
         scale[bad] = 1.0
+        response = np.where(np.isfinite(response), response, 0.0)
+        columns = np.where(np.isfinite(columns), columns, 0.0)
     y_mean = response.mean(axis=1)
-    yc = augmented[:, p, :]
-    np.subtract(response, y_mean[:, None], out=yc)
+    yc = response - y_mean[:, None]
 
     if method == "normal":
         gram = cross / scale[:, :, None] / scale[:, None, :]
@@ -278,24 +238,37 @@ def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
         slopes = _mv(cross_inv, _mv(centred, yc))
         resid = yc - _vm(slopes, centred)
         slopes = slopes + _mv(cross_inv, _mv(centred, resid))
+        with np.errstate(invalid="ignore"):
+            unsettled = ~(np.diagonal(gram_inv, axis1=1, axis2=2).max(axis=1) <= NORMAL_GRAM_LIMIT)
+        params = np.empty((b, k))
+        params[:, 1:] = slopes
+        params[:, 0] = y_mean - np.einsum("bj,bj->b", means, slopes)
+        resid = yc - _vm(slopes, centred)
     elif method == "qr":
-        # Householder QR of [centred regressors | centred response]: the last column of R
-        # holds Q'y, so Q is never formed. Householder QR is column-scaling invariant, so
-        # R of the unit-length columns is R with its columns divided by their lengths.
-        r_aug: FloatArray = np.asarray(np.linalg.qr(augmented.transpose(0, 2, 1), mode="r"))
-        r = r_aug[:, :p, :p] / scale[:, None, :]
-        singular = np.abs(np.diagonal(r, axis1=1, axis2=2)).min(axis=1) <= 1e-14
-        r = np.where(singular[:, None, None], np.eye(p), r)
-        r_inv = _upper_inverse(r)
+        unit = (centred / scale[:, :, None]).transpose(0, 2, 1)
+        q_c, r_unit = np.linalg.qr(unit)
+        diagonal = np.abs(np.diagonal(r_unit, axis1=1, axis2=2))
+        unsettled = ~(diagonal.min(axis=1) > RANK_TOLERANCE * diagonal.max(axis=1))
+        r_unit = np.where(unsettled[:, None, None], np.eye(p), r_unit)
+        r_inv = _upper_inverse(r_unit)
         gram_inv = np.matmul(r_inv, r_inv.transpose(0, 2, 1))
         cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
-        slopes = _mv(r_inv, r_aug[:, :p, p]) / scale
+        slopes = _mv(r_inv, np.einsum("bnj,bn->bj", q_c, yc)) / scale
+        start = np.empty((b, k))
+        start[:, 1:] = slopes
+        start[:, 0] = y_mean - np.einsum("bj,bj->b", means, slopes)
+        # X = [1 | M] = Q R with Q = [1/sqrt(n) | q_c], R = [[sqrt(n), sqrt(n) m'], [0, R_c]].
+        root_n = np.sqrt(n)
+        q = np.concatenate([np.full((b, n, 1), 1.0 / root_n), q_c], axis=2)
+        r = np.zeros((b, k, k))
+        r[:, 0, 0] = root_n
+        r[:, 0, 1:] = root_n * means
+        r[:, 1:, 1:] = r_unit * scale[:, None, :]
+        params, resid = refine(columns, response, start, q, r)
     else:
         raise ValueError(f"unknown method {method!r}")
-    resid = yc - _vm(slopes, centred)
-    vif_max = np.diagonal(gram_inv, axis1=1, axis2=2).max(axis=1)
-    bad = bad | singular | ~np.isfinite(vif_max) | (vif_max > RANK_VIF_LIMIT)
-    return _Solution(means, centred, scale, y_mean, yc, slopes, resid, cross, cross_inv, bad)
+    flagged = bad | unsettled | ~np.isfinite(params).all(axis=1)
+    return _Solution(means, centred, scale, yc, params, resid, cross, cross_inv, flagged)
 
 
 def _upper_inverse(r: FloatArray) -> FloatArray:
@@ -321,7 +294,7 @@ def fit_ols_params(
     solution = _solve(
         np.asarray(design, dtype=np.float64), np.asarray(response, dtype=np.float64), method
     )
-    return solution.params, solution.resid, np.flatnonzero(solution.deficient)
+    return solution.params, solution.resid, np.flatnonzero(solution.flagged)
 
 
 def fit_ols_stack(
@@ -341,7 +314,8 @@ def fit_ols_stack(
     response : FloatArray
         Shape (b, n).
     cov_type : str
-        ``"classical"``, ``"hc3"`` or ``"hac"``.
+        ``"classical"``, ``"hc0"``, ``"hc1"``, ``"hc2"``, ``"hc3"`` or ``"hac"``
+        (:mod:`models.sandwich`).
     hac_lags : int, optional
         Newey-West truncation lag; default :func:`newey_west_lags`.
     method : str
@@ -351,8 +325,8 @@ def fit_ols_stack(
     Returns
     -------
     OLSStack
-        Figures for each product; ``rank_deficient`` lists products that need
-        terms dropped before their figures can be trusted.
+        Figures for each product; ``rank_deficient`` lists products whose figures need
+        the single-product path (see :class:`OLSStack`).
 
     Examples
     --------
@@ -414,7 +388,7 @@ def fit_ols_stack(
         f_stat=f_stat,
         f_p_value=special.fdtrc(p, df_resid, f_stat),
         sigma=np.sqrt(sigma2),
-        rank_deficient=np.flatnonzero(solution.deficient),
+        rank_deficient=np.flatnonzero(solution.flagged),
         _centred=solution.centred,
         _means=means,
         _cross=solution.cross,
@@ -427,23 +401,23 @@ def _robust_cov(solution: _Solution, cov_type: str, hac_lags: int | None) -> Flo
     """Sandwich covariance of the original coefficients from each period's influence.
 
     Period t moves the slopes by ``inv(C'C) c_t psi_t`` and the centred intercept by
-    ``psi_t / n`` (``psi`` the residual, divided by ``1 - h`` for HC3); the original
+    ``psi_t / n`` (``psi`` the residual, scaled as :func:`models.sandwich.robust_root`
+    says for HC0-HC3); the original
     intercept is ``a - means . slopes``. The covariance is the (Bartlett-weighted for
     HAC) cross-product of these influences, the same sandwich as :func:`sandwich_meat`
     between the bread, in square-root form.
-    Periods with leverage 1 make the HC3 figures NaN (flagged downstream), never an error.
+    Periods with leverage 1 make the HC2 and HC3 figures NaN (flagged downstream), never an
+    error.
     """
     centred, resid = solution.centred, solution.resid
     b, p, n = centred.shape
     k = p + 1
     pull = np.matmul(solution.cross_inv, centred)
-    if cov_type == "hc3":
-        leverage = 1.0 / n + np.einsum("bjn,bjn->bn", pull, centred)
-        psi = resid / (1.0 - leverage)
-    elif cov_type == "hac":
+    if cov_type == "hac":
         psi = resid
     else:
-        raise ValueError(f"unknown robust covariance {cov_type!r}")
+        leverage = 1.0 / n + np.einsum("bjn,bjn->bn", pull, centred)
+        psi = robust_root(resid, cov_type, k, leverage)
     influence = np.empty((b, k, n))
     np.multiply(pull, psi[:, None, :], out=influence[:, 1:, :])
     influence[:, 0, :] = psi / n - _vm(solution.means, influence[:, 1:, :])
@@ -460,10 +434,17 @@ def _robust_cov(solution: _Solution, cov_type: str, hac_lags: int | None) -> Flo
 
 
 def _solve_each(matrices: FloatArray, vectors: FloatArray) -> FloatArray:
+    """Solve each member's system; a singular member gets NaN, never its neighbours."""
     try:
         return np.asarray(np.linalg.solve(matrices, vectors[:, :, None])[:, :, 0], np.float64)
     except np.linalg.LinAlgError:
-        return np.full(vectors.shape, np.nan)
+        out = np.full(vectors.shape, np.nan)
+        for i in range(matrices.shape[0]):
+            try:
+                out[i] = np.linalg.solve(matrices[i], vectors[i])
+            except np.linalg.LinAlgError:
+                continue
+        return out
 
 
 def _placeholder_columns(n: int, p: int) -> FloatArray:

@@ -120,7 +120,12 @@ class Diagnostics:
 
 @dataclass(frozen=True)
 class DataWindow:
-    """Which periods the fit used and what was left out."""
+    """Which periods the fit used and what was left out.
+
+    ``n_window_excluded`` counts the older periods of the history that the window
+    (``window_periods``, the most recent ones) left out, the first of them on
+    ``window_excluded_from``; 0 and None when the window held the whole history.
+    """
 
     first_period: str
     last_period: str
@@ -130,6 +135,8 @@ class DataWindow:
     n_zero_units_dropped: int
     n_missing_dropped: int
     holdout_periods: int
+    n_window_excluded: int = 0
+    window_excluded_from: str | None = None
 
 
 _window_counts = itemgetter(
@@ -139,6 +146,7 @@ _window_counts = itemgetter(
     "n_zero_units_dropped",
     "n_missing_dropped",
     "holdout_periods",
+    "n_window_excluded",
 )
 
 

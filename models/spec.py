@@ -16,8 +16,15 @@ FORMS: Final = ("linear", "log-log", "semi-log", "poisson", "auto")
 FITTED_FORMS: Final = ("linear", "log-log", "semi-log", "poisson")
 LOG_RESPONSE_FORMS: Final = ("log-log", "semi-log")
 SEASONALITIES: Final = ("none", "month", "fourier")
-STANDARD_ERRORS: Final = ("classical", "hc3", "hac")
+STANDARD_ERRORS: Final = ("classical", "hc0", "hc1", "hc2", "hc3", "hac")
 POOLINGS: Final = ("none", "family")
+_NAME_LISTS: Final = (
+    "covariates",
+    "log_covariates",
+    "cross_prices",
+    "instruments",
+    "log_instruments",
+)
 UNIT_COST: Final = "unit_cost"
 """The name under which a history's unit cost serves as an instrument for the own price."""
 
@@ -44,10 +51,15 @@ class ModelSpec:
         Add a linear time trend (in years).
     standard_errors : str
         ``"hc3"`` (default: heteroskedasticity-robust, well behaved in small samples,
-        Long & Ervin 2000), ``"classical"`` or ``"hac"`` (Newey-West).
+        Long & Ervin 2000), ``"hc0"`` (White 1980), ``"hc1"`` (HC0 times n / (n - k), the
+        "robust" errors most software reports), ``"hc2"``, ``"classical"`` or ``"hac"``
+        (Newey-West); formulas in :mod:`models.sandwich`.
     instruments : tuple of str
         Excluded instruments for the own price (``"unit_cost"`` or covariate names
         not among ``covariates``); non-empty means two-stage least squares.
+    log_instruments : tuple of str
+        Subset of ``instruments`` entered as natural logs; the others enter in levels
+        (so an instrument that is zero in some periods can be used).
     window_periods : int
         Fit on at most this many most recent periods.
     exclude_stockouts : bool
@@ -70,12 +82,13 @@ class ModelSpec:
     trend: bool = False
     standard_errors: str = "hc3"
     instruments: tuple[str, ...] = ()
+    log_instruments: tuple[str, ...] = ()
     window_periods: int = 104
     exclude_stockouts: bool = True
     pooling: str = "none"
 
     def __post_init__(self) -> None:
-        for name in ("covariates", "log_covariates", "cross_prices", "instruments"):
+        for name in _NAME_LISTS:
             value = getattr(self, name)
             if isinstance(value, list):  # accept lists from callers; store tuples
                 object.__setattr__(self, name, tuple(value))
@@ -156,7 +169,7 @@ def _problems(spec: ModelSpec) -> list[tuple[str, str]]:
     _choice(problems, "seasonality", spec.seasonality, SEASONALITIES)
     _choice(problems, "standard_errors", spec.standard_errors, STANDARD_ERRORS)
     _choice(problems, "pooling", spec.pooling, POOLINGS)
-    for name in ("covariates", "log_covariates", "cross_prices", "instruments"):
+    for name in _NAME_LISTS:
         values = getattr(spec, name)
         if not isinstance(values, tuple):
             problems.append((name, "must be a tuple of names"))
@@ -164,11 +177,16 @@ def _problems(spec: ModelSpec) -> list[tuple[str, str]]:
         if len(set(values)) != len(values):
             problems.append((name, "contains duplicates"))
         reserved = {"price", "units", "intercept", "trend"}
-        if name != "instruments" and reserved & set(values):
+        if name not in ("instruments", "log_instruments") and reserved & set(values):
             problems.append((name, f"may not use the reserved names {sorted(reserved)}"))
     extra_logs = set(spec.log_covariates) - set(spec.covariates)
     if extra_logs:
         problems.append(("log_covariates", f"not listed in covariates: {sorted(extra_logs)}"))
+    extra_log_instruments = set(spec.log_instruments) - set(spec.instruments)
+    if extra_log_instruments:
+        problems.append(
+            ("log_instruments", f"not listed in instruments: {sorted(extra_log_instruments)}")
+        )
     clash = set(spec.covariates) & set(spec.cross_prices)
     if clash:
         problems.append(("cross_prices", f"also listed as covariates: {sorted(clash)}"))

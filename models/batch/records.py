@@ -13,6 +13,7 @@ from models.batch.layout import Layout, Plan
 from models.checks import (
     MIN_OBS_PER_TERM,
     MIN_PRICE_CV,
+    NEAR_COLLINEAR_CONDITION,
     SIGNIFICANCE,
     VIF_LIMIT,
     equation_text,
@@ -63,6 +64,12 @@ def stack_records(
     n_stockouts = plan.n_stockouts[members]
     n_zero = plan.n_zero[members]
     n_missing = plan.n_missing[members]
+    owners = [histories[i] for i in plan.ok[members].tolist()]
+    n_excluded = [h.n_periods - layout.width for h in owners]
+    excluded_from = [
+        str(h.periods[0]) if n else None for h, n in zip(owners, n_excluded, strict=True)
+    ]
+    condition = stack.condition_number
     flagged = (
         (params[:, 1] > 0.0)
         | ~(pvalues[:, 1] < SIGNIFICANCE)
@@ -72,6 +79,8 @@ def stack_records(
         | (n_stockouts > 0)
         | (n_zero > 0)
         | (n_missing > 0)
+        | (np.asarray(n_excluded) > 0)
+        | (np.isfinite(condition) & (condition > NEAR_COLLINEAR_CONDITION))
     )
     warnings: list[tuple[FitWarning, ...]] = [()] * b
     for i in np.flatnonzero(flagged).tolist():
@@ -87,6 +96,9 @@ def stack_records(
             n_window=layout.width,
             n_zero_dropped=int(n_zero[i]),
             n_missing=int(n_missing[i]),
+            condition_number=float(condition[i]),
+            n_window_excluded=n_excluded[i],
+            window_excluded_from=excluded_from[i],
         )
 
     var_names = list(variables)
@@ -154,6 +166,8 @@ def stack_records(
             "n_zero_units_dropped": n_zero.tolist(),
             "n_missing_dropped": n_missing.tolist(),
             "holdout_periods": plan.holdout[members].tolist(),
+            "n_window_excluded": n_excluded,
+            "window_excluded_from": excluded_from,
         },
         {"n_window": layout.width},
     )

@@ -22,8 +22,10 @@ class FitRequest(Strict):
     spec: dict[str, Any] | None = Field(
         default=None,
         description="Model specification (form, covariates, log_covariates, cross_prices, "
-        "seasonality, trend, standard_errors, instruments, window_periods, "
-        "exclude_stockouts, pooling); omit to use the product's default_spec",
+        "seasonality, trend, standard_errors (classical, hc0, hc1, hc2, hc3, hac), "
+        "instruments, log_instruments, window_periods, exclude_stockouts, pooling); omit to "
+        "use the product's default_spec. Instruments enter in levels unless named in "
+        "log_instruments",
         examples=[
             {
                 "form": "log-log",
@@ -91,6 +93,15 @@ class WindowOut(BaseModel):
     n_zero_units_dropped: int
     n_missing_dropped: int
     holdout_periods: int
+    n_window_excluded: int = Field(
+        default=0,
+        description="Older periods of the history left out because the window keeps only the "
+        "latest `window_periods` (0 when the window held the whole history)",
+    )
+    window_excluded_from: str | None = Field(
+        default=None,
+        description="The first (oldest) period left out by the window, or null",
+    )
 
 
 class PooledOut(BaseModel):
@@ -115,7 +126,12 @@ class FitSummary(BaseModel):
     status: FitStatus
     form: str
     n_obs: int
-    own_price_estimate: float | None
+    own_price_estimate: float | None = Field(
+        description="The own-price coefficient of the fitted equation. It is the own-price "
+        "elasticity only in the log-log and poisson forms; in linear fits it is units per "
+        "unit of price, in semi-log fits the proportional change in units per unit of price. "
+        "Use the elasticities endpoint for elasticities in every form."
+    )
     holdout_wape: float | None
     created_at: dt.datetime
 
@@ -148,7 +164,8 @@ class ElasticityOut(BaseModel):
     class_: str | None = Field(
         alias="class",
         serialization_alias="class",
-        description="elastic / inelastic / unit-elastic (own price); substitute / complement "
+        description="elastic / inelastic / unit-elastic, or unclear when the 95% interval "
+        "spans -1 and wrong sign when it lies above 0 (own price); substitute / complement "
         "/ no clear relation (cross price); inferior / necessity / luxury (income-like)",
     )
 

@@ -33,6 +33,8 @@ _FIT_WARNINGS = {
     "missing_values_dropped": ("incomplete weeks dropped", "note"),
     "terms_dropped": ("terms dropped", "note"),
     "weak_instrument": ("weak instrument", "caution"),
+    "near_collinear": ("drivers nearly duplicate each other", "caution"),
+    "window_excluded": ("older weeks outside the window", "note"),
 }
 
 _PRICING_WARNINGS = {
@@ -92,8 +94,8 @@ def rules_words(names: tuple[str, ...] | list[str]) -> str:
 
 
 def elasticity_class_words(value: float, classification: str | None) -> str:
-    """The class in words; a non-negative own-price elasticity is called what it is."""
-    if value >= 0:
+    """The class in words, as the API gives it (which weighs the 95% interval too)."""
+    if classification is None and value >= 0:
         return "wrong sign"
     return (classification or "not classified").replace("_", " ")
 
@@ -116,7 +118,7 @@ def _fmt(value: float | None, digits: int = 3) -> str:
 def diagnostics(figures: dict[str, float | None], standard_errors: str) -> list[Reading]:
     """Each stored diagnostic with a sentence; figures that are missing are left out."""
     readings = []
-    robust = standard_errors in ("hc3", "hac")
+    robust = standard_errors in ("hc0", "hc1", "hc2", "hc3", "hac")
     dw = figures.get("durbin_watson")
     if dw is not None:
         # Rule of thumb (common practice, no source): 1.5 to 2.5 shows no worrying pattern.

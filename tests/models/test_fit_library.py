@@ -247,9 +247,28 @@ def test_log_log_elasticities_are_coefficients_and_level_terms_scale() -> None:
 
 def test_own_price_classes() -> None:
     inelastic = fit_demand(clean_history(0, price_coef=-0.4), SPEC)
-    unit = fit_demand(clean_history(0, price_coef=-1.0), SPEC)
     assert elasticities(inelastic).own.classification == "inelastic"
-    assert elasticities(unit).own.classification == "unit-elastic"
+    # A true elasticity of -1: two years of weeks leave an interval wider than the unit band
+    # around -1, so the class is "unclear"; forty years of weeks pin it inside the band.
+    short = elasticities(fit_demand(clean_history(0, price_coef=-1.0), SPEC)).own
+    assert short.ci_low < -1.0 < short.ci_high
+    assert short.classification == "unclear"
+    long_spec = replace(SPEC, window_periods=2080)
+    precise = elasticities(fit_demand(clean_history(0, n=2080, price_coef=-1.0), long_spec)).own
+    assert precise.ci_low >= -1.1 and precise.ci_high <= -0.9
+    assert precise.classification == "unit-elastic"
+
+
+def test_own_price_class_follows_the_interval_not_only_the_estimate() -> None:
+    # Twelve periods with a noisy price effect: the estimate is below -1 but its interval
+    # spans -1, so the class says "unclear" instead of "elastic".
+    bare = replace(SPEC, covariates=(), log_covariates=())
+    noisy = fit_demand(clean_history(3, n=12, price_coef=-1.5), bare)
+    own = elasticities(noisy).own
+    assert own.ci_low < -1.0 < own.ci_high
+    assert own.classification == "unclear"
+    rising = elasticities(fit_demand(clean_history(0, price_coef=1.5), SPEC)).own
+    assert rising.ci_low > 0.0 and rising.classification == "wrong sign"
 
 
 def test_prediction_linear_matches_statsmodels_prediction_interval() -> None:

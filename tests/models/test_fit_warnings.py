@@ -77,6 +77,19 @@ def _weak_instrument() -> tuple[History, ModelSpec]:
     return clean_history(10), replace(SPEC, instruments=("noise",))
 
 
+def _near_collinear() -> tuple[History, ModelSpec]:
+    # A covariate equal to the price up to one part in 10^8: full rank, badly conditioned.
+    h = clean_history(11)
+    rng = np.random.default_rng(11)
+    twin = h.price * (1.0 + 1e-8 * rng.normal(size=N))
+    spec = replace(SPEC, covariates=("rival", "promo", "twin"), log_covariates=("rival", "twin"))
+    return replace(h, covariates={**h.covariates, "twin": twin}), spec
+
+
+def _long_history() -> tuple[History, ModelSpec]:
+    return clean_history(12, n=N + 26), SPEC  # 26 periods older than the window
+
+
 TRIGGERS: dict[str, Callable[[], tuple[History, ModelSpec]]] = {
     "own_price_positive": _positive_price,
     "own_price_not_significant": _no_price_effect,
@@ -88,6 +101,8 @@ TRIGGERS: dict[str, Callable[[], tuple[History, ModelSpec]]] = {
     "missing_values_dropped": _missing,
     "terms_dropped": _constant_term,
     "weak_instrument": _weak_instrument,
+    "near_collinear": _near_collinear,
+    "window_excluded": _long_history,
 }
 
 
@@ -124,6 +139,51 @@ def test_dropped_term_is_named_and_missing_from_the_table() -> None:
     fit = fit_demand(history, spec)
     assert "flat" not in fit.term_names
     assert "flat" in next(w.message for w in fit.warnings if w.code == "terms_dropped")
+
+
+def test_duplicated_column_is_dropped_with_a_message_naming_it() -> None:
+    # An exact copy of a covariate is a linear combination of it: the pivoted QR drops the
+    # copy (the later column) and the message names both.
+    h = clean_history(13)
+    spec = replace(SPEC, covariates=("rival", "promo", "promo_copy"))
+    history = replace(h, covariates={**h.covariates, "promo_copy": h.covariates["promo"].copy()})
+    for fit in (fit_demand(history, spec), fit_many([history, clean_history(98)], spec)[0]):
+        assert isinstance(fit, DemandFit)
+        assert fit.term_names == ("intercept", "ln(price)", "ln(rival)", "promo")
+        message = next(w.message for w in fit.warnings if w.code == "terms_dropped")
+        assert "promo_copy is a linear combination of promo" in message
+        assert "near_collinear" not in _codes(fit)
+
+
+def test_constant_term_is_called_constant() -> None:
+    fit = fit_demand(*_constant_term())
+    message = next(w.message for w in fit.warnings if w.code == "terms_dropped")
+    assert "flat never varies" in message
+
+
+def test_near_collinear_design_keeps_every_term_and_states_the_condition_number() -> None:
+    fit = fit_demand(*_near_collinear())
+    assert "ln(twin)" in fit.term_names and "terms_dropped" not in _codes(fit)
+    message = next(w.message for w in fit.warnings if w.code == "near_collinear")
+    assert f"{fit.diagnostics.condition_number:.3g}" in message
+
+
+def test_window_note_appears_only_when_older_periods_were_left_out() -> None:
+    history, spec = _long_history()
+    for fit in (fit_demand(history, spec), fit_many([history, clean_history(97)], spec)[0]):
+        assert isinstance(fit, DemandFit)
+        assert fit.window.n_window_excluded == 26
+        assert fit.window.window_excluded_from == str(history.periods[0])
+        message = next(w.message for w in fit.warnings if w.code == "window_excluded")
+        assert message.startswith(f"26 older periods (from {history.periods[0]})")
+    # A history exactly as long as the window, or shorter, gets no note.
+    for n in (N, N - 10):
+        fit = fit_demand(clean_history(12, n=n), spec)
+        assert fit.window.n_window_excluded == 0 and fit.window.window_excluded_from is None
+        assert "window_excluded" not in _codes(fit)
+    # A wider window takes the whole history and the note goes away.
+    wide = fit_demand(history, replace(spec, window_periods=N + 26))
+    assert wide.window.n_window_excluded == 0 and "window_excluded" not in _codes(wide)
 
 
 def test_own_price_vif_and_sign_messages_quote_figures() -> None:
