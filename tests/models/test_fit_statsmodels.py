@@ -45,8 +45,9 @@ def _random_design(
 
 def _compare_stack(design, y, stack, i, cov_type="classical", lags=None) -> float:
     kwargs: dict = {}
-    if cov_type == "hc3":
-        kwargs = {"cov_type": "HC3", "use_t": True}
+    if cov_type in ("hc0", "hc1", "hc2", "hc3"):
+        # statsmodels' OLS robust covariances (MacKinnon & White 1985 forms).
+        kwargs = {"cov_type": cov_type.upper(), "use_t": True}
     elif cov_type == "hac":
         kwargs = {
             "cov_type": "HAC",
@@ -65,13 +66,14 @@ def _compare_stack(design, y, stack, i, cov_type="classical", lags=None) -> floa
     return worst
 
 
-@pytest.mark.parametrize("cov_type", ["classical", "hc3", "hac"])
+@pytest.mark.parametrize("cov_type", ["classical", "hc0", "hc1", "hc2", "hc3", "hac"])
 def test_stack_equals_statsmodels_on_random_specs(cov_type: str) -> None:
     # Robust covariances are compared on moderately conditioned designs: on the hard ones
     # statsmodels' pinv-based HC3 itself drifts by up to ~cond(X) * 1e-16 (observed 3e-6).
     hard = cov_type == "classical"
     rng = np.random.default_rng(20240601)
     worst = 0.0
+    compared = 0
     for _ in range(12):
         k = int(rng.integers(2, 10))
         n = int(rng.integers(k + 8, 130))
@@ -88,7 +90,10 @@ def test_stack_equals_statsmodels_on_random_specs(cov_type: str) -> None:
             assert stack.rank_deficient.size == 0
             for i, (design, y) in enumerate(pairs):
                 worst = max(worst, _compare_stack(design, y, stack, i, cov_type, lags))
-    assert worst < RTOL, worst
+                compared += 1
+    assert compared >= 40  # at least 20 random specifications through each solver
+    # HC0-HC2 are held to 1e-9 (issue #14); the others keep the module's tolerance.
+    assert worst < (1e-9 if cov_type in ("hc0", "hc1", "hc2") else RTOL), worst
 
 
 def test_diagnostics_equal_statsmodels() -> None:
@@ -152,7 +157,7 @@ def _reference_design(h: History, form: str) -> tuple[np.ndarray, np.ndarray]:
 
 
 @pytest.mark.parametrize("form", ["linear", "log-log", "semi-log"])
-@pytest.mark.parametrize("cov_type", ["classical", "hc3"])
+@pytest.mark.parametrize("cov_type", ["classical", "hc1", "hc3"])
 def test_fit_many_equals_statsmodels_with_different_lengths(form: str, cov_type: str) -> None:
     rng = np.random.default_rng(11)
     lengths = [30, 52, 52, 80, 104, 104, 104, 61]
@@ -165,7 +170,7 @@ def test_fit_many_equals_statsmodels_with_different_lengths(form: str, cov_type:
         standard_errors=cov_type,
     )
     fits = fit_many(histories, spec)
-    kwargs = {"cov_type": "HC3", "use_t": True} if cov_type == "hc3" else {}
+    kwargs = {"cov_type": cov_type.upper(), "use_t": True} if cov_type.startswith("hc") else {}
     for h, fit in zip(histories, fits, strict=True):
         assert isinstance(fit, DemandFit)
         design, y = _reference_design(h, form)
