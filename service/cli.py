@@ -8,25 +8,28 @@ import json
 import sys
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 from service.core.settings import Settings, get_settings
 
 OPENAPI_PATH = Path(__file__).resolve().parent.parent / "openapi" / "openapi.json"
 
 
-def _db(args: argparse.Namespace, settings: Settings) -> int:
+def _schema(args: argparse.Namespace, settings: Settings) -> int:
     from service.core import migrate
 
-    if args.action == "upgrade":
-        migrate.upgrade(settings, args.revision or "head")
-    elif args.action == "downgrade":
-        migrate.downgrade(settings, args.revision or "base")
+    if args.action == "apply":
+        migrate.upgrade(settings, migrate.step_revision(settings, args.to or "latest"))
+    elif args.action == "undo":
+        migrate.downgrade(settings, migrate.step_revision(settings, args.to))
     else:
         from service.core.db import make_engine
 
         engine = make_engine(settings)
-        print(migrate.current_revision(engine) or "(empty database)")
-        engine.dispose()
+        try:
+            print(migrate.current_revision(engine) or "empty (no schema step applied)")
+        finally:
+            engine.dispose()
     return 0
 
 
@@ -75,6 +78,7 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
                 print("store the secret now; it is not shown again:")
                 print(new.secret)
             elif args.action == "list":
+                print("id\tname\tscopes\tstate\tlast used")
                 for row in auth.list_keys(session):
                     state = "revoked" if row.revoked_at else "active"
                     used = row.last_used_at.isoformat() if row.last_used_at else "never"
@@ -89,6 +93,20 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
     return 0
 
 
+def _json_option(args: argparse.Namespace, name: str) -> dict[str, Any] | None:
+    """A JSON object given on the command line, or a one-line refusal."""
+    text = getattr(args, name, None)
+    if text is None:
+        return None
+    try:
+        value = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise CommandError(f"--{name} is not JSON: {exc}") from None
+    if not isinstance(value, dict):
+        raise CommandError(f"--{name} must be a JSON object, in braces")
+    return value
+
+
 def _scope(args: argparse.Namespace) -> object:
     if args.family:
         return {"family": args.family}
@@ -101,11 +119,12 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
     """Create a job and run it here, with a progress bar on a terminal."""
     from service.core.db import make_engine, make_session_factory, session_scope
     from service.jobs import queue as job_store
+    from service.jobs import submit
     from service.jobs.progress import JobProgressDisplay, print_summary
     from service.jobs.worker import JobRunner
 
-    request = json.loads(args.request) if getattr(args, "request", None) else None
-    spec = json.loads(args.spec) if getattr(args, "spec", None) else None
+    request = _json_option(args, "request")
+    spec = _json_option(args, "spec")
     on_cluster = _on_cluster(args, settings)
     if on_cluster is None:
         return 2
@@ -113,11 +132,11 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
     engine = make_engine(settings)
     try:
         with session_scope(make_session_factory(engine, writer=True)) as session:
-            job_id = job_store.create(
+            job_id = submit.submit(
                 session,
                 kind=args.command,
                 scope=_scope(args),
-                force=args.force,
+                force=getattr(args, "force", False),
                 spec=spec,
                 request=request,
             ).id
@@ -268,10 +287,18 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="marginal", description=__doc__)
     commands = parser.add_subparsers(dest="command", required=True)
 
-    db = commands.add_parser("db", help="apply or inspect schema migrations")
-    db.add_argument("action", choices=["upgrade", "downgrade", "current"])
-    db.add_argument("--revision", help="target revision (upgrade: head; downgrade: base)")
-    db.set_defaults(run=_db)
+    schema = commands.add_parser(
+        "schema", help="bring the database's tables to a schema step, or show its step"
+    )
+    steps = schema.add_subparsers(dest="action", required=True)
+    apply = steps.add_parser("apply", help="apply the schema steps up to the latest (or --to)")
+    apply.add_argument("--to", help="a step id such as 0003 (default: latest)")
+    undo = steps.add_parser("undo", help="undo schema steps back to --to")
+    undo.add_argument(
+        "--to", required=True, help="the step to keep, such as 0003, or 'empty' for no tables"
+    )
+    steps.add_parser("show", help="print the step the database is at")
+    schema.set_defaults(run=_schema)
 
     serve = commands.add_parser("serve", help="serve the HTTP API")
     serve.add_argument("--host")
@@ -305,12 +332,12 @@ def build_parser() -> argparse.ArgumentParser:
         which.add_argument("--all", action="store_true", help="every product (the default)")
         which.add_argument("--family", help="one family")
         which.add_argument("--sku", action="append", help="a sku; repeat for several")
-        job.add_argument(
-            "--force",
-            action="store_true",
-            help="refit: also products whose history has not changed",
-        )
         if kind == "refit":
+            job.add_argument(
+                "--force",
+                action="store_true",
+                help="also products whose history has not changed (needed with --spec)",
+            )
             job.add_argument("--spec", help="one model spec (JSON) for every product")
         else:
             job.add_argument("--request", help="optimal-price request body (JSON) for each")
@@ -344,9 +371,20 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+class CommandError(Exception):
+    """A mistake on the command line, told in one line."""
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    from service.core.errors import ServiceError
+
     args = build_parser().parse_args(argv)
-    code: int = args.run(args, get_settings())
+    try:
+        code: int = args.run(args, get_settings())
+    except (CommandError, ServiceError) as exc:
+        where = "; ".join(f"{e.field}: {e.message}" for e in getattr(exc, "errors", []) if e.field)
+        print(f"marginal: error: {exc}" + (f" ({where})" if where else ""), file=sys.stderr)
+        return 2
     return code
 
 

@@ -19,8 +19,8 @@ from service.access import routes as keys
 from service.catalogue import import_routes as imports
 from service.catalogue import observation_routes as observations
 from service.catalogue import product_routes as products
+from service.core import docs_pages, logs, metrics, problems
 from service.core import health_routes as health
-from service.core import logs, metrics, problems
 from service.core import metrics_routes as metrics_route
 from service.core.db import make_engine, make_session_factory
 from service.core.group_commit import GroupWriter
@@ -71,6 +71,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         description=API_DESCRIPTION,
         lifespan=lifespan,
         license_info={"name": "Apache-2.0"},
+        docs_url=None,
+        redoc_url=None,
     )
     engine = make_engine(settings)
     app.state.settings = settings
@@ -110,6 +112,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     ):
         app.include_router(router)
     app.mount(STATIC_URL, ui.static_files(), name="ui-static")
+    docs_pages.install(app)
     return app
 
 

@@ -10,6 +10,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine
 
+from service.core.errors import InvalidInput
 from service.core.settings import Settings
 
 MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
@@ -20,6 +21,24 @@ def alembic_config(settings: Settings) -> Config:
     config.set_main_option("script_location", str(MIGRATIONS_DIR))
     config.attributes["settings"] = settings
     return config
+
+
+def step_revision(settings: Settings, step: str) -> str:
+    """A schema step as the users name it (``latest``, ``empty`` or a step id such as
+    ``0003``) as the migration tool's revision; unknown steps are invalid input."""
+    if step == "latest":
+        return "head"
+    if step == "empty":
+        return "base"
+    known = [
+        s.revision for s in ScriptDirectory.from_config(alembic_config(settings)).walk_revisions()
+    ]
+    if step not in known:
+        raise InvalidInput(
+            f"no schema step {step!r}; the steps are {', '.join(sorted(known))}, "
+            "'latest' and 'empty'"
+        )
+    return step
 
 
 def upgrade(settings: Settings, revision: str = "head") -> None:
