@@ -121,7 +121,9 @@ class OLSStack:
         design[:, :, 1:] = (centred + means[:, :, None]).transpose(0, 2, 1)
         design /= np.linalg.norm(design, axis=1, keepdims=True)
         with np.errstate(divide="ignore", invalid="ignore"):
-            singular = np.linalg.svd(design, compute_uv=False)
+            # The singular values of the design are those of its R factor (k x k).
+            r_factor = np.linalg.qr(np.nan_to_num(design), mode="r")
+            singular = np.linalg.svd(r_factor, compute_uv=False)
             result: FloatArray = singular[:, 0] / singular[:, -1]
         return result
 

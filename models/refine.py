@@ -11,7 +11,8 @@ products of doubles (Dekker 1971, "A floating-point technique for extending the 
 precision", Numerische Mathematik 18, 224-242), so the result does not depend on the
 platform's ``long double``. Each step solves the correction with the thin QR factors the
 solver already has; two steps reach the certified digits of every NIST StRD linear set
-whose design double precision can hold exactly.
+whose design double precision can hold exactly, and a member whose first step no longer
+moved it takes no second one.
 """
 
 from __future__ import annotations
@@ -24,6 +25,9 @@ from models._typing import FloatArray
 
 _SPLITTER: Final = 134217729.0  # 2**27 + 1, Dekker's splitting constant for doubles
 REFINEMENT_STEPS: Final = 2
+_SETTLED: Final = 8.0 * float(np.finfo(np.float64).eps)
+"""A step this small beside its coefficient (or its column's share of the response) ends
+a member's refinement."""
 
 
 def _two_sum(a: FloatArray, b: FloatArray) -> tuple[FloatArray, FloatArray]:
@@ -39,10 +43,15 @@ def _split(a: FloatArray) -> tuple[FloatArray, FloatArray]:
     return high, a - high
 
 
-def _two_product(a: FloatArray, b: FloatArray) -> tuple[FloatArray, FloatArray]:
-    """``a * b`` as a rounded product and its exact rounding error (Dekker's TwoProduct)."""
+def _two_product(
+    a: FloatArray, a_parts: tuple[FloatArray, FloatArray], b: FloatArray
+) -> tuple[FloatArray, FloatArray]:
+    """``a * b`` as a rounded product and its exact rounding error (Dekker's TwoProduct).
+
+    ``a_parts`` is ``_split(a)``, computed once by the caller for a reused operand.
+    """
     p = a * b
-    ah, al = _split(a)
+    ah, al = a_parts
     bh, bl = _split(b)
     return p, ((ah * bh - p) + ah * bl + al * bh) + al * bl
 
@@ -62,25 +71,32 @@ def _pairwise_sum(high: FloatArray, low: FloatArray) -> FloatArray:
 
 
 def residual_gap(
-    columns: FloatArray, response: FloatArray, resid: FloatArray, params: FloatArray
+    columns: FloatArray,
+    parts: tuple[FloatArray, FloatArray],
+    response: FloatArray,
+    resid: FloatArray,
+    params: FloatArray,
 ) -> FloatArray:
     """``y - r - X b`` for a stack, accurate to about twice double precision.
 
-    ``columns`` is (b, k, n) (one row per design column), ``response`` and ``resid``
-    (b, n), ``params`` (b, k).
+    ``columns`` is (b, k, n) (one row per design column) and ``parts`` its Dekker split,
+    ``response`` and ``resid`` (b, n), ``params`` (b, k).
     """
     high, low = _two_sum(response, -resid)
     for j in range(columns.shape[1]):
-        product, product_error = _two_product(columns[:, j, :], -params[:, j : j + 1])
+        column_parts = (parts[0][:, j, :], parts[1][:, j, :])
+        product, product_error = _two_product(columns[:, j, :], column_parts, -params[:, j : j + 1])
         high, error = _two_sum(high, product)
         low = low + error + product_error
     result: FloatArray = high + low
     return result
 
 
-def cross_residual(columns: FloatArray, resid: FloatArray) -> FloatArray:
+def cross_residual(
+    columns: FloatArray, parts: tuple[FloatArray, FloatArray], resid: FloatArray
+) -> FloatArray:
     """``X' r`` for a stack (b, k), each sum accurate to about twice double precision."""
-    product, product_error = _two_product(columns, resid[:, None, :])
+    product, product_error = _two_product(columns, parts, resid[:, None, :])
     return _pairwise_sum(product, product_error)
 
 
@@ -111,17 +127,31 @@ def refine(
     >>> bool(np.all(params == 1.0))
     True
     """
+    params = params.copy()
     resid = response - np.matmul(params[:, None, :], columns)[:, 0, :]
-    r_t = r.transpose(0, 2, 1)
+    column_norms = np.sqrt(np.einsum("bkn,bkn->bk", columns, columns))
+    response_norms = np.sqrt(np.einsum("bn,bn->b", response, response))
+    active = np.arange(params.shape[0])
     for _ in range(steps):
-        gap = residual_gap(columns, response, resid, params)
-        grad = -cross_residual(columns, resid)
+        if not active.size:
+            break
+        # Only members whose last step still moved them are refined again, so a product's
+        # figures never depend on the stack it was fitted in.
+        x, y, e, b = columns[active], response[active], resid[active], params[active]
+        parts = _split(x)
+        gap = residual_gap(x, parts, y, e, b)
+        grad = -cross_residual(x, parts, e)
+        qa, ra = q[active], r[active]
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            h = _triangular_solve(r_t, grad, lower=True)
-            d = np.einsum("bnk,bn->bk", q, gap)
-            step = _triangular_solve(r, d - h, lower=False)
-            resid = resid + gap - np.einsum("bnk,bk->bn", q, d - h)
-            params = params + step
+            h = _triangular_solve(ra.transpose(0, 2, 1), grad, lower=True)
+            d = np.einsum("bnk,bn->bk", qa, gap)
+            step = _triangular_solve(ra, d - h, lower=False)
+            resid[active] = e + gap - np.einsum("bnk,bk->bn", qa, d - h)
+            params[active] = b + step
+            settled = (np.abs(step) <= _SETTLED * np.abs(b + step)) | (
+                np.abs(step) * column_norms[active] <= _SETTLED * response_norms[active, None]
+            )
+        active = active[~settled.all(axis=1)]
     return params, resid
 
 
