@@ -13,6 +13,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from service.catalogue.csv_layout import Layout
+from service.core.bounds import NUMBER_LINES, number_or_none
 
 TRUE_WORDS = frozenset({"1", "true", "t", "yes", "y"})
 FALSE_WORDS = frozenset({"0", "false", "f", "no", "n"})
@@ -34,20 +35,16 @@ def in_stock_value(word: str) -> object:
 
 
 def finite_number(text: str) -> float | None:
-    try:
-        value = float(text)
-    except ValueError:
-        return None
-    return value if math.isfinite(value) else None
+    """A cell's finite number under the documented grammar (:mod:`service.core.bounds`)."""
+    return number_or_none(text)
 
 
 def finite_column(cells: Sequence[str], *, minimum: float, strict: bool) -> np.ndarray | None:
-    try:
-        values = np.fromiter(map(float, cells), np.float64, len(cells))
-    except ValueError:
+    if NUMBER_LINES.fullmatch("\n".join(cells) + "\n") is None:
         return None
+    values = np.fromiter(map(float, cells), np.float64, len(cells))
     ok = np.isfinite(values) & ((values > minimum) if strict else (values >= minimum))
-    return values if bool(ok.all()) else None
+    return values + 0.0 if bool(ok.all()) else None
 
 
 def optional_column(cells: Sequence[str], *, minimum: float) -> list[float | None] | None:
@@ -59,18 +56,20 @@ def optional_column(cells: Sequence[str], *, minimum: float) -> list[float | Non
         if not cell.strip():
             out.append(None)
             continue
-        try:
-            value = float(cell)
-        except ValueError:
-            return None
-        if not math.isfinite(value) or value < minimum:
+        value = number_or_none(cell)
+        if value is None or value < minimum:
             return None
         out.append(value)
     return out
 
 
-# JSON numbers with at most two exponent digits: always finite as doubles.
-_JSON_NUMBERS = re.compile(r"(?:-?(?:0|[1-9][0-9]*)(?:\.[0-9]+)?(?:[eE][+-]?[0-9]{1,2})?\n)*")
+# JSON numbers that are surely finite doubles (at most 15 integer digits, 17 fraction
+# digits and two exponent digits) and not a minus zero: copied as sent. Others go
+# through float().
+_JSON_NUMBERS = re.compile(
+    r"(?:(?!-0(?:\.0+)?(?:[eE][+-]?[0-9]+)?\n)-?(?:0|[1-9][0-9]{0,14})(?:\.[0-9]{1,17})?"
+    r"(?:[eE][+-]?[0-9]{1,2})?\n)*"
+)
 
 
 def covariate_json_column(

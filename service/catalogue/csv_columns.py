@@ -27,6 +27,7 @@ from service.catalogue.csv_cells import BAD_FLAG, in_stock_value
 from service.catalogue.csv_layout import Layout
 from service.catalogue.observations import ObservationColumns, observation_writer
 from service.catalogue.upsert_outcome import UpsertOutcome
+from service.core.bounds import NUMBER_GRAMMAR, period_in_range
 from service.core.schemas import SKU_PATTERN
 
 # About 20,000 rows of a typical file a block: batches big enough to amortise the
@@ -92,11 +93,9 @@ def _quotes_balanced(raw: IO[bytes]) -> bool:
 
 def _batches(raw: IO[bytes], layout: Layout) -> pacsv.CSVStreamingReader:
     names = [f"c{i}" for i in range(layout.width)]
-    floats = [layout.price, layout.units, *(i for i, _ in layout.covariates)]
-    if layout.unit_cost is not None:
-        floats.append(layout.unit_cost)
+    # Numbers are read as text and checked against the one number grammar
+    # (:mod:`service.core.bounds`) before they are converted (:func:`_numbers`).
     types = {name: pa.string() for name in names}
-    types.update({names[i]: pa.float64() for i in floats})
     return pacsv.open_csv(
         raw,
         read_options=pacsv.ReadOptions(
@@ -185,7 +184,7 @@ def _ordinal(period: str) -> int:
         day = dt.date.fromisoformat(period)
     except ValueError:
         raise _GiveUp from None
-    if day.isoformat() != period:
+    if day.isoformat() != period or not period_in_range(day):
         raise _GiveUp  # stored as given only when it is already the ISO form
     return day.toordinal()
 
@@ -195,22 +194,38 @@ def _repeats(keys: np.ndarray) -> bool:
     return bool((ordered[1:] == ordered[:-1]).any())
 
 
-def _required(column: pa.Array) -> np.ndarray:
-    if column.null_count:
+_NUMBER_PATTERN = f"^{NUMBER_GRAMMAR}$"
+
+
+def _numbers(column: pa.Array) -> pa.Array:
+    """A text column as doubles (an empty cell: null); gives up on a cell outside the
+    number grammar, and makes a minus zero zero (as PostgreSQL would)."""
+    text = pc.if_else(pc.equal(column, ""), pa.scalar(None, pa.string()), column)
+    present = text.drop_null()
+    if len(present) and not pc.all(pc.match_substring_regex(present, _NUMBER_PATTERN)).as_py():
         raise _GiveUp
-    values: np.ndarray = column.to_numpy()
+    numbers: pa.Array = pc.add(pc.cast(text, pa.float64()), 0.0)
+    return numbers
+
+
+def _required(column: pa.Array) -> np.ndarray:
+    numbers = _numbers(column)
+    if numbers.null_count:
+        raise _GiveUp
+    values: np.ndarray = numbers.to_numpy()
     if not np.isfinite(values).all():
         raise _GiveUp
     return values
 
 
 def _optional(column: pa.Array) -> list[float | None]:
-    if not column.null_count:
+    numbers = _numbers(column)
+    if not numbers.null_count:
         return _required(column).tolist()  # type: ignore[no-any-return]
-    present = column.drop_null().to_numpy()
+    present = numbers.drop_null().to_numpy()
     if not (np.isfinite(present).all() and (present >= 0.0).all()):
         raise _GiveUp
-    values: list[float | None] = column.to_pylist()
+    values: list[float | None] = numbers.to_pylist()
     return values
 
 
@@ -232,10 +247,11 @@ def _covariates(batch: pa.RecordBatch, layout: Layout) -> pa.Array | None:
         return None
     parts: list[pa.Array | str] = []
     for position, (index, name) in enumerate(sorted(layout.covariates, key=lambda c: c[1])):
-        column = batch.column(index)
+        column = _numbers(batch.column(index))
         if column.null_count:
             raise _GiveUp  # a row without some covariate: the row path leaves its key out
-        _required(column)
+        if not np.isfinite(column.to_numpy()).all():
+            raise _GiveUp
         parts.append(("{" if position == 0 else ",") + f'"{name}":')
         parts.append(pc.cast(column, pa.string()))
     parts.append("}")

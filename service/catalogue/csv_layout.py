@@ -11,6 +11,7 @@ import re
 from dataclasses import dataclass
 from typing import IO
 
+from service.core.bounds import MAX_COVARIATES_PER_FILE
 from service.core.errors import ErrorItem, InvalidInput
 from service.core.schemas import NAME_PATTERN
 
@@ -65,6 +66,15 @@ def read_header(names: list[str], errors: CsvErrors) -> Layout | None:
     for name in REQUIRED_COLUMNS:
         if name not in seen:
             errors.add(1, name, f"required column {name!r} is missing")
+    extra = [n for n in names if n not in REQUIRED_COLUMNS and n not in OPTIONAL_COLUMNS]
+    if len(extra) > MAX_COVARIATES_PER_FILE:
+        errors.add(
+            1,
+            None,
+            f"a file has at most {MAX_COVARIATES_PER_FILE} covariate columns, "
+            f"this one has {len(extra)}",
+        )
+        return None
     covariates = []
     for index, name in enumerate(names):
         if name in REQUIRED_COLUMNS or name in OPTIONAL_COLUMNS:

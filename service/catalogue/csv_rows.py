@@ -32,6 +32,7 @@ from service.catalogue.csv_cells import (
 from service.catalogue.csv_layout import MAX_REPORTED_ERRORS, CsvErrors, Layout, bad_utf8_line
 from service.catalogue.observations import ObservationTuple, observation_writer
 from service.catalogue.upsert_outcome import UpsertOutcome
+from service.core.bounds import PERIOD_RANGE_TEXT, period_in_range
 from service.core.schemas import SKU_PATTERN
 
 
@@ -234,7 +235,7 @@ def _fast_chunk(rows: list[list[str]], row_lines: list[int], layout: Layout) -> 
             day = dt.date.fromisoformat(p)
         except ValueError:
             return None
-        if day.isoformat() != p:
+        if day.isoformat() != p or not period_in_range(day):
             return None
         ordinal_of[p] = day.toordinal()
     price = finite_column(columns[layout.price], minimum=0.0, strict=True)
@@ -282,10 +283,15 @@ def _parse_row(
         ok = False
     period = cells[layout.period].strip()
     try:
-        period = dt.date.fromisoformat(period).isoformat()
+        day = dt.date.fromisoformat(period)
     except ValueError:
         errors.add(line, "period", f"{period!r} is not an ISO date (YYYY-MM-DD)")
         ok = False
+    else:
+        period = day.isoformat()
+        if not period_in_range(day):
+            errors.add(line, "period", f"a period lies from {PERIOD_RANGE_TEXT}")
+            ok = False
     price = finite_number(cells[layout.price])
     if price is None or price <= 0:
         errors.add(line, "price", "price must be a finite number above zero")
@@ -312,12 +318,17 @@ def _parse_row(
             ok = False
     parts = []
     for index, name in layout.covariates:
-        cell = cells[index].strip()
-        if not cell:
+        cell = cells[index]
+        if not cell.strip():
             continue  # an empty cell means no value for that period
         value = finite_number(cell)
         if value is None:
-            errors.add(line, name, f"covariate {name!r} must be a finite number, got {cell!r}")
+            errors.add(
+                line,
+                name,
+                f"covariate {name!r} must be a finite number written as -12.5 or 2.5e3, "
+                f"got {cell!r}",
+            )
             ok = False
         else:
             parts.append(f'"{name}":{value!r}')

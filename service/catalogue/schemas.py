@@ -12,12 +12,14 @@ from pydantic import (
     model_validator,
 )
 
+from service.core.bounds import MAX_COVARIATES_PER_OBSERVATION
 from service.core.schemas import (
     CovariateName,
     Currency,
     Family,
     FiniteNumber,
     Money,
+    Period,
     PositiveMoney,
     Strict,
 )
@@ -80,14 +82,18 @@ class ProductOut(BaseModel):
 
 
 class ObservationIn(Strict):
-    period: dt.date = Field(description="ISO date of the period's first day")
+    period: Period
     price: PositiveMoney
     units: Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
     unit_cost: Money | None = None
     in_stock: bool | None = Field(
         default=None, strict=True, description="False if the product ran out during the period"
     )
-    covariates: dict[CovariateName, FiniteNumber] = Field(default_factory=dict)
+    covariates: dict[CovariateName, FiniteNumber] = Field(
+        default_factory=dict,
+        max_length=MAX_COVARIATES_PER_OBSERVATION,
+        description=f"At most {MAX_COVARIATES_PER_OBSERVATION} named numbers",
+    )
 
 
 class ObservationBatch(Strict):

@@ -28,6 +28,8 @@ def make_engine(settings: Settings) -> Engine:
             },
             pool_size=settings.database_pool_size,
             json_serializer=json_text.dumps,
+            # Errors and logs name a failing statement, never its values (a key's hash).
+            hide_parameters=True,
         )
         queue = _WriterQueue(settings.sqlite_busy_timeout_ms / 1000)
         event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
@@ -46,6 +48,8 @@ def make_engine(settings: Settings) -> Engine:
         pool_pre_ping=True,
         pool_size=settings.database_pool_size,
         json_serializer=json_text.dumps,
+        # Errors and logs name a failing statement, never its values (a key's hash).
+        hide_parameters=True,
     )
 
 

@@ -7,12 +7,15 @@ import re
 from typing import Annotated, Generic, Literal, TypeVar
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
     Field,
     StringConstraints,
 )
+
+from service.core.bounds import PERIOD_RANGE_TEXT, period_in_range
 
 # Query parameters take dates and times only as the OpenAPI formats name them: pydantic
 # alone would also read a number as seconds since 1970, or a date as a date-time.
@@ -41,7 +44,24 @@ CovariateName = Annotated[str, StringConstraints(pattern=NAME_PATTERN)]
 Money = Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
 PositiveMoney = Annotated[float, Field(strict=True, gt=0, allow_inf_nan=False)]
 Currency = Annotated[str, StringConstraints(pattern=r"^[A-Z]{3}$")]
-FiniteNumber = Annotated[float, Field(strict=True, allow_inf_nan=False)]
+# Minus zero is zero: PostgreSQL's JSON numbers keep no sign of zero, so both databases
+# store 0.
+FiniteNumber = Annotated[
+    float, Field(strict=True, allow_inf_nan=False), AfterValidator(lambda v: v + 0.0)
+]
+
+
+def _period_in_range(day: dt.date) -> dt.date:
+    if not period_in_range(day):
+        raise ValueError(f"a period lies from {PERIOD_RANGE_TEXT}")
+    return day
+
+
+Period = Annotated[
+    dt.date,
+    AfterValidator(_period_in_range),
+    Field(description=f"ISO date of the period's first day, from {PERIOD_RANGE_TEXT}"),
+]
 
 T = TypeVar("T")
 

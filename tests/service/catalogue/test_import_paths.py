@@ -189,7 +189,6 @@ def test_a_long_clean_file_is_written_block_by_block(
     ("line", "why"),
     [
         ("TEA-003,2024-01-01,2,5,,,,0", "a period without one covariate"),
-        ('TEA-003,2024-01-01,2,5,,,1," 0\n"', "a quoted line break"),
         (" TEA-003 , 2024-01-01 ,2,5,,,1,0", "spaces around the sku and period"),
     ],
 )
