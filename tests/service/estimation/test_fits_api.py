@@ -267,3 +267,56 @@ def test_family_pooling_reports_raw_and_pooled(shop: TestClient, headers: dict[s
     assert pooled["pooled_std_error"] <= pooled["raw_std_error"] + 1e-12
     report = shop.get("/v1/products/TEA-021/elasticities", headers=headers).json()
     assert report["pooled"] == pooled
+
+
+def test_window_note_in_the_answer_the_stored_fit_and_the_view(
+    shop: TestClient, headers: dict[str, str]
+) -> None:
+    whole = shop.post("/v1/products/TEA-021/fits", json={"spec": NAIVE}, headers=headers).json()
+    n_periods = whole["window"]["n_window"]
+    # The default window holds the demo's whole history: no note.
+    assert whole["window"]["n_window_excluded"] == 0
+    assert whole["window"]["window_excluded_from"] is None
+    assert "window_excluded" not in [w["code"] for w in whole["warnings"]]
+
+    short = {**NAIVE, "window_periods": n_periods - 20}
+    body = shop.post("/v1/products/TEA-021/fits", json={"spec": short}, headers=headers).json()
+    assert body["window"]["n_window_excluded"] == 20
+    oldest = body["window"]["window_excluded_from"]
+    assert oldest is not None and oldest < body["window"]["first_period"]
+    note = next(w["message"] for w in body["warnings"] if w["code"] == "window_excluded")
+    assert note.startswith(f"20 older periods (from {oldest})")
+    stored = shop.get("/v1/products/TEA-021/demand-model", headers=headers).json()
+    assert stored["window"]["n_window_excluded"] == 20 and stored["id"] == body["id"]
+
+    key = headers["Authorization"].split()[1]
+    signed = shop.post("/ui/sign-in", data={"key": key, "next": "/ui/"}, follow_redirects=False)
+    assert signed.status_code == 303, signed.text
+    page = shop.get("/ui/products/TEA-021")
+    assert page.status_code == 200
+    assert "older weeks outside the window" in page.text and oldest in page.text
+
+
+def test_levels_instrument_and_hc1_errors_over_http(
+    shop: TestClient, headers: dict[str, str]
+) -> None:
+    spec = {**WITH_COST_INSTRUMENT, "standard_errors": "hc1"}
+    levels = shop.post("/v1/products/TEA-021/fits", json={"spec": spec}, headers=headers)
+    assert levels.status_code == 201, levels.json()
+    logged = shop.post(
+        "/v1/products/TEA-021/fits",
+        json={"spec": {**spec, "log_instruments": ["unit_cost"]}},
+        headers=headers,
+    )
+    assert logged.status_code == 201, logged.json()
+    # The same instrument in levels and in logs gives different first stages.
+    first = levels.json()["diagnostics"]["first_stage_f"]
+    assert first != logged.json()["diagnostics"]["first_stage_f"]
+    bad = shop.post(
+        "/v1/products/TEA-021/fits",
+        json={"spec": {**NAIVE, "log_instruments": ["unit_cost"]}},
+        headers=headers,
+    )
+    assert bad.status_code == 422 and "log_instruments" in bad.text
+    own = shop.get("/v1/products/TEA-021/elasticities", headers=headers).json()["elasticities"][0]
+    assert own["class"] in {"elastic", "inelastic", "unit-elastic", "unclear", "wrong sign"}
