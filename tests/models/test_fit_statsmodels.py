@@ -245,6 +245,21 @@ def test_poisson_equals_statsmodels_glm() -> None:
         assert _rel(est_hac.bse, hac.bse) < 1e-8
 
 
+def test_poisson_hc0_equals_statsmodels_and_hc1_adds_the_degrees_of_freedom_factor() -> None:
+    # Source: statsmodels GLM cov_type="HC0" (the plain sandwich). HC1 is HC0 times
+    # n / (n - k) (MacKinnon & White 1985); statsmodels' GLM "HC1" returns HC0 unscaled
+    # (observed here: the ratio is exactly sqrt(n / (n - k))), so it is checked by definition.
+    for seed in range(5):
+        design, units, _, _ = _poisson_data(seed)
+        n, k = design.shape
+        glm = sm.GLM(units, design, family=sm.families.Poisson())
+        ref = glm.fit(tol=1e-13, cov_type="HC0")
+        hc0 = fit_poisson(design, units, cov_type="hc0")
+        hc1 = fit_poisson(design, units, cov_type="hc1")
+        assert _rel(hc0.bse, ref.bse) < 1e-9
+        assert _rel(hc1.cov, hc0.cov * n / (n - k)) < 1e-12
+
+
 def test_poisson_hc3_is_leverage_adjusted_hc0() -> None:
     # statsmodels GLM's cov_type="HC0" gives the plain sandwich (its "HC3" label for GLM also
     # returns HC0); our HC3 divides each score by (1 - h) with h the GLM hat diagonal, which
