@@ -13,7 +13,8 @@ from sqlalchemy import Engine
 from service.core.errors import InvalidInput
 from service.core.settings import Settings
 
-MIGRATIONS_DIR = Path(__file__).resolve().parents[2] / "migrations"
+# Inside the package, so an installed wheel (the container image) can migrate too.
+MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
 
 
 def alembic_config(settings: Settings) -> Config:
