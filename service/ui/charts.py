@@ -33,6 +33,9 @@ matplotlib.rcParams.update(
         "svg.fonttype": "none",  # text stays text: searchable, selectable, read aloud
         "svg.hashsalt": "marginal",  # stable element ids, so equal charts are equal bytes
         "date.epoch": "1970-01-01T00:00:00",  # day numbers of dates, see charts_fit_time
+        # Text is drawn as written: a product name such as "Cost $5 and $6" is no formula.
+        "text.parse_math": False,
+        "text.usetex": False,
         "font.size": 9,
         "axes.spines.top": False,
         "axes.spines.right": False,
