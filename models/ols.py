@@ -251,7 +251,11 @@ def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
         q_c, r_unit = np.linalg.qr(unit)
         diagonal = np.abs(np.diagonal(r_unit, axis1=1, axis2=2))
         unsettled = ~(diagonal.min(axis=1) > RANK_TOLERANCE * diagonal.max(axis=1))
-        r_unit = np.where(unsettled[:, None, None], np.eye(p), r_unit)
+        # Only an exactly singular factor is replaced (to keep the stack solvable); a merely
+        # flagged one is solved as it is, since the single-product path, having decided the
+        # rank by pivoted QR, reads these figures whatever the flag says.
+        singular = ~(diagonal.min(axis=1) > 0.0) | ~np.isfinite(diagonal).all(axis=1)
+        r_unit = np.where(singular[:, None, None], np.eye(p), r_unit)
         r_inv = _upper_inverse(r_unit)
         gram_inv = np.matmul(r_inv, r_inv.transpose(0, 2, 1))
         cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
