@@ -173,7 +173,7 @@ def optimal_family_prices(
     if family_binding:
         status = max(status, STATUS_CONSTRAINED)
     message = (
-        f"Optimum held by rules: {', '.join(dict.fromkeys(named))}."
+        f"Optimum held by constraints: {', '.join(dict.fromkeys(named))}."
         if named
         else "Optimum found inside the allowed prices."
     )

@@ -183,7 +183,7 @@ def product_recommendation(
         search=SEARCH_WORDS[method],
         search_steps=nit,
         summary=(
-            f"Optimum held by a rule: {', '.join(binding)}."
+            f"Optimum held by a constraint: {', '.join(binding)}."
             if binding
             else "Optimum found inside the allowed prices."
         ),

@@ -111,7 +111,7 @@ class PriceRecommendation:
         Variable values the demand was evaluated at (own price excluded).
     optimum : str
         What kind of optimum the price is: ``"interior"`` (the objective's own best
-        price, inside the allowed prices), ``"held_by_rule"`` (a constraint holds the
+        price, inside the allowed prices), ``"held_by_constraint"`` (a constraint holds the
         price where it is) or ``"no_finite_optimum"`` (the objective keeps improving
         toward a bound, so the price sits on that bound).
     search : str

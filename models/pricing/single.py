@@ -45,7 +45,7 @@ STATUS_CONSTRAINED = 1
 STATUS_UNBOUNDED = 2
 OPTIMUM_WORDS = {
     STATUS_INTERIOR: "interior",
-    STATUS_CONSTRAINED: "held_by_rule",
+    STATUS_CONSTRAINED: "held_by_constraint",
     STATUS_UNBOUNDED: "no_finite_optimum",
 }
 SEARCH_WORDS = {
@@ -155,7 +155,7 @@ def _message(status: int, binding: list[str], grid: str | None, n_grid: int) -> 
     if status == STATUS_UNBOUNDED:
         text = f"No finite optimum; the price sits on {', '.join(binding)}."
     elif status == STATUS_CONSTRAINED:
-        text = f"Optimum held by a rule: {', '.join(binding)}."
+        text = f"Optimum held by a constraint: {', '.join(binding)}."
     else:
         text = "Optimum found inside the allowed prices."
     if grid is not None:

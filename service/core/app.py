@@ -37,7 +37,7 @@ from service.ui.links import STATIC_URL
 
 API_DESCRIPTION = """\
 Marginal estimates how demand for each product responds to its price and to other
-drivers, and recommends revenue- or profit-maximising prices within business rules.
+drivers, and recommends revenue- or profit-maximising prices within business constraints.
 
 **Cautions.** Every figure is an estimate from past data, not an instruction. Prices
 outside the range a product was sold at are extrapolations, and responses say so.

@@ -22,7 +22,7 @@ def health() -> Health:
     "/readyz",
     response_model=Readiness,
     operation_id="readiness",
-    summary="Readiness: database reachable and schema at the latest migration",
+    summary="Readiness: database reachable and its schema at the latest step",
     responses={503: {"model": Readiness, "description": "Not ready"}},
 )
 def readiness(settings: SettingsDep, engine: EngineDep) -> JSONResponse:
@@ -36,8 +36,8 @@ def readiness(settings: SettingsDep, engine: EngineDep) -> JSONResponse:
     body = Readiness(
         status="ready" if ready else "not ready",
         database="reachable" if reachable else "unreachable",
-        schema_revision=current,
-        expected_revision=expected,
+        schema_step=current,
+        latest_step=expected,
     )
     return JSONResponse(
         body.model_dump(),

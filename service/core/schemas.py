@@ -104,5 +104,5 @@ class Health(BaseModel):
 class Readiness(BaseModel):
     status: Literal["ready", "not ready"]
     database: Literal["reachable", "unreachable"]
-    schema_revision: str | None
-    expected_revision: str | None
+    schema_step: str | None = Field(description="The schema step the database is at")
+    latest_step: str | None = Field(description="The latest schema step this version knows")

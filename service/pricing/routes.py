@@ -41,12 +41,13 @@ CAUTION = (
     response_model_exclude_none=False,
     dependencies=[READ],
     operation_id="optimal_price",
-    summary="Recommend the revenue- or profit-maximising price under business rules",
+    summary="Recommend the revenue- or profit-maximising price under business constraints",
     description=(
         "Uses the product's active fit. Prices stay within the observed range widened by "
         "10% unless `allow_extrapolation` is set; any price outside the observed range is "
-        "warned. A fit whose own-price effect has the wrong sign is refused with 409 unless "
-        "`force`." + CAUTION
+        "warned. A fit whose own-price effect has the wrong sign never becomes active (a "
+        "quality gate rejects it), so such a product answers 404; were one priced, the "
+        "answer would be 409 unless `force`." + CAUTION
     ),
     responses=problems(404, 409, 422),
 )
@@ -72,7 +73,7 @@ def _optimal_price(
     response_model=FamilyRecommendationOut,
     dependencies=[READ],
     operation_id="family_optimal_prices",
-    summary="Recommend joint prices for a family, with cross-price effects and ladder rules",
+    summary="Recommend joint prices for a family, with cross-price effects and order constraints",
     description=(
         "Maximises the family's total revenue or profit over the prices of its products "
         "that have an active fit (the others are listed in `excluded`)." + CAUTION

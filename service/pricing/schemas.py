@@ -20,7 +20,7 @@ Percent = Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
 
 
 class ConstraintsIn(Strict):
-    """Business rules for a recommended price; product defaults fill min/max price."""
+    """Constraints on a recommended price; product defaults fill min/max price."""
 
     min_price: PositiveMoney | None = None
     max_price: PositiveMoney | None = None
@@ -46,17 +46,17 @@ class ConstraintsIn(Strict):
     )
 
 
-Optimum = Literal["interior", "held_by_rule", "no_finite_optimum"]
+Optimum = Literal["interior", "held_by_constraint", "no_finite_optimum"]
 OPTIMUM_HELP = (
     "What kind of optimum the price is: `interior` (the objective's own best price, inside "
-    "the allowed prices), `held_by_rule` (a business rule holds the price where it is; see "
+    "the allowed prices), `held_by_constraint` (a constraint holds the price where it is; see "
     "`binding_constraints`) or `no_finite_optimum` (the objective keeps improving toward a "
     "bound, so the price sits on that bound)"
 )
 Search = Literal["continuous", "allowed_prices", "allowed_prices_local"]
 SEARCH_HELP = (
     "How the price was found: `continuous` (any price in the allowed range), "
-    "`allowed_prices` (every price a step or endings rule allows compared) or "
+    "`allowed_prices` (every price a step or endings constraint allows compared) or "
     "`allowed_prices_local` (in large families, the allowed prices near the continuous "
     "optimum compared)"
 )
@@ -140,7 +140,7 @@ class RecommendationOut(BaseModel):
     recommended: PricePointOut
     change_pct: float | None
     unconstrained_price: float | None = Field(
-        description="The best price with no business rule (null when there is none)"
+        description="The best price with no constraint (null when there is none)"
     )
     binding_constraints: list[str]
     feasible_range: RangeOut | None
@@ -159,10 +159,10 @@ class RecommendationOut(BaseModel):
 class FamilyPriceRequest(Strict):
     objective: Objective = "profit"
     constraints: ConstraintsIn = Field(
-        default_factory=ConstraintsIn, description="Rules for every product of the family"
+        default_factory=ConstraintsIn, description="Constraints for every product of the family"
     )
     product_constraints: dict[Sku, ConstraintsIn] = Field(
-        default_factory=dict, description="Rules for one product, replacing the shared ones"
+        default_factory=dict, description="Constraints for one product, replacing the shared ones"
     )
     order: list[Annotated[list[Sku], Field(min_length=2, max_length=2)]] = Field(
         default_factory=list, description="Price ladder: [a, b] means price(a) <= price(b)"

@@ -165,7 +165,7 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
                 f"(largest miss {count(float(residual[worst]))} in the week of {worst_week})."
             )
     if data.r_squared is not None:
-        lines.append(f"R-squared {data.r_squared:.3f}.")
+        lines.append(f"R² {data.r_squared:.3f}.")
     if data.holdout_start is not None:
         wape = f"{data.holdout_wape:.1%}" if data.holdout_wape is not None else "not scored"
         lines.append(

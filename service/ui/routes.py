@@ -93,7 +93,7 @@ def get_chart(
     """`demand`: past weeks (promotion and stockout weeks marked) with the fitted curve and
     its 95% band at the latest scenario, the observed price range, current and recommended
     price. `money`: revenue and profit against price with the allowed band, the best price
-    and its uncertainty range, under the rules of the latest recommendation. `fit-over-time`:
+    and its uncertainty range, under the constraints of the latest recommendation. `fit-over-time`:
     actual and fitted units by week, the hold-out weeks shaded, residuals below. Products
     without a fit get a chart that says so. Cacheable: send the ETag back in If-None-Match."""
     return chart_response(db, records.product(db, sku), kind, if_none_match)

@@ -177,7 +177,7 @@ def test_binding_constraints_are_named() -> None:
         constraints=PriceConstraints(max_change_pct=half_way),
     )
     assert result.binding_constraints == ("max_change_pct",)
-    assert result.optimum == "held_by_rule" and "max_change_pct" in result.summary
+    assert result.optimum == "held_by_constraint" and "max_change_pct" in result.summary
     assert abs(result.change_pct or 0.0) == pytest.approx(half_way, rel=1e-9)
     on_grid = optimal_price(
         data.fit,

@@ -27,7 +27,7 @@ def test_health_and_ready(client: TestClient) -> None:
     ready = client.get("/readyz")
     assert ready.status_code == 200
     assert ready.json()["status"] == "ready"
-    assert ready.json()["schema_revision"] == ready.json()["expected_revision"]
+    assert ready.json()["schema_step"] == ready.json()["latest_step"]
 
 
 def test_not_ready_without_schema(tmp_path: Path) -> None:

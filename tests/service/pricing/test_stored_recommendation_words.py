@@ -96,10 +96,10 @@ def test_old_recommendations_read_back_in_new_words(
         assert page.status_code == 200, page.text
         [item] = page.json()["items"]
         assert not set(OLD_WORDS) & set(item)
-        assert item["optimum"] == "held_by_rule"
+        assert item["optimum"] == "held_by_constraint"
         assert item["search"] == "allowed_prices"
         assert item["search_steps"] == 41
-        assert item["summary"].startswith("Optimum held by a rule: max_change_pct.")
+        assert item["summary"].startswith("Optimum held by a constraint: max_change_pct.")
 
         migrate.downgrade(settings, "0004")
         with engine.connect() as conn:

@@ -23,15 +23,15 @@ down_revision: str | None = "0004"
 branch_labels: str | Sequence[str] | None = None
 depends_on: str | Sequence[str] | None = None
 
-_OPTIMUM = {0: "interior", 1: "held_by_rule", 2: "no_finite_optimum"}
+_OPTIMUM = {0: "interior", 1: "held_by_constraint", 2: "no_finite_optimum"}
 _SEARCH = {
     "continuous": "continuous",
     "grid": "allowed_prices",
     "grid-local": "allowed_prices_local",
 }
 _SUMMARY = (
-    ("Optimum on constraints:", "Optimum held by rules:"),
-    ("Optimum on a constraint:", "Optimum held by a rule:"),
+    ("Optimum on constraints:", "Optimum held by constraints:"),
+    ("Optimum on a constraint:", "Optimum held by a constraint:"),
     ("Objective unbounded;", "No finite optimum;"),
 )
 _BATCH = 1000
