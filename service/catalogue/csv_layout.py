@@ -57,15 +57,30 @@ class Layout:
     covariates: tuple[tuple[int, str], ...]
 
 
+def _hint(name: str, names: list[str], by_lower: dict[str, str]) -> str:
+    """Why a required column may look missing: another separator, or another case."""
+    if len(names) == 1 and ";" in names[0]:
+        return "; the file looks semicolon-separated: separate columns with commas"
+    if len(names) == 1 and "\t" in names[0]:
+        return "; the file looks tab-separated: separate columns with commas"
+    found = by_lower.get(name)
+    if found is not None and found != name:
+        return f"; column names are lower case: write {name!r}, not {found!r}"
+    return ""
+
+
 def read_header(names: list[str], errors: CsvErrors) -> Layout | None:
     seen: set[str] = set()
     for name in names:
         if name in seen:
             errors.add(1, name, f"column {name!r} appears more than once")
         seen.add(name)
+    by_lower = {n.strip().lower(): n for n in names}
     for name in REQUIRED_COLUMNS:
         if name not in seen:
-            errors.add(1, name, f"required column {name!r} is missing")
+            errors.add(
+                1, name, f"required column {name!r} is missing" + _hint(name, names, by_lower)
+            )
     extra = [n for n in names if n not in REQUIRED_COLUMNS and n not in OPTIONAL_COLUMNS]
     if len(extra) > MAX_COVARIATES_PER_FILE:
         errors.add(

@@ -178,7 +178,12 @@ LIBRARY_ERRORS: tuple[type[Exception], ...] = (
 
 
 def from_library(
-    exc: Exception, *, subject: str = "", spec_field: str = "spec", sku: str | None = None
+    exc: Exception,
+    *,
+    subject: str = "",
+    spec_field: str = "spec",
+    sku: str | None = None,
+    gate_min_observations: int | None = None,
 ) -> ServiceError:
     """The numerical library's error ``exc`` as a domain error.
 
@@ -199,7 +204,13 @@ def from_library(
     if isinstance(exc, InsufficientDataError):
         return InvalidInput(
             f"not enough data to fit {exc.sku!r}: {exc.n_obs} usable observations, the model "
-            f"needs at least {exc.n_required} ({exc.n_missing} more)",
+            f"needs at least {exc.n_required} ({exc.n_missing} more)"
+            + (
+                f"; to become the active fit it needs at least {gate_min_observations} "
+                "(the enough_observations gate)"
+                if gate_min_observations and gate_min_observations > exc.n_required
+                else ""
+            ),
             errors=[ErrorItem(field="observations", message=str(exc))],
         )
     if isinstance(exc, UnusableDataError):
@@ -241,11 +252,21 @@ def from_library(
 
 @contextmanager
 def library_errors(
-    *, subject: str = "", spec_field: str = "spec", sku: str | None = None
+    *,
+    subject: str = "",
+    spec_field: str = "spec",
+    sku: str | None = None,
+    gate_min_observations: int | None = None,
 ) -> Iterator[None]:
     """Run library code with floating-point traps on; its errors leave as domain errors."""
     try:
         with strict_floats():
             yield
     except LIBRARY_ERRORS as exc:
-        raise from_library(exc, subject=subject, spec_field=spec_field, sku=sku) from None
+        raise from_library(
+            exc,
+            subject=subject,
+            spec_field=spec_field,
+            sku=sku,
+            gate_min_observations=gate_min_observations,
+        ) from None

@@ -23,8 +23,17 @@ _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 _RFC3339 = re.compile(r"\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)?([Zz]|[+-]\d{2}:\d{2})")
 
 
+# "+01:00" sent unencoded in a query string arrives as " 01:00" (a bare + means a space).
+_PLUS_AS_SPACE = re.compile(r"\d{4}-\d{2}-\d{2}[Tt]\d{2}:\d{2}:\d{2}(\.\d+)? \d{2}:\d{2}")
+
+
 def _text_matching(pattern: re.Pattern[str], example: str) -> BeforeValidator:
     def check(value: object) -> object:
+        if isinstance(value, str) and _PLUS_AS_SPACE.fullmatch(value):
+            raise ValueError(
+                f"expected text like {example}; a '+' in a query string must be sent as "
+                "%2B (a bare '+' means a space), e.g. 2026-12-01T00:00:00%2B01:00"
+            )
         if not isinstance(value, str) or not pattern.fullmatch(value):
             raise ValueError(f"expected text like {example}")
         return value

@@ -43,6 +43,7 @@ class PricingTerms:
     current_price: float | None
     min_price: float | None
     max_price: float | None
+    currency: str
 
 
 _PRODUCT_WITH_ACTIVE_FIT = (
@@ -53,6 +54,7 @@ _PRODUCT_WITH_ACTIVE_FIT = (
         ProductRow.current_price,
         ProductRow.min_price,
         ProductRow.max_price,
+        ProductRow.currency,
         FitRow.id.label("fit_id"),
         FitRow.created_at.label("fit_created_at"),
     )
@@ -74,6 +76,7 @@ def product_with_active_fit(session: Session, sku: str) -> tuple[PricingTerms, i
         current_price=found.current_price,
         min_price=found.min_price,
         max_price=found.max_price,
+        currency=found.currency,
     )
     if found.fit_id is None:
         raise _no_active_fit(product)
@@ -147,7 +150,9 @@ def fit_product(
     model_spec = parse_spec(spec if spec is not None else product.default_spec)
     history = histories.load_history(session, product=product, cross_skus=model_spec.cross_prices)
     cannot = f"the history of {sku!r} cannot be fitted in the {model_spec.form} form"
-    with library_errors(subject=cannot, sku=sku):
+    with library_errors(
+        subject=cannot, sku=sku, gate_min_observations=settings.gate_min_observations
+    ):
         fit = fit_demand(history, model_spec)
         if model_spec.pooling == "family" and product.family:
             fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pytest
 from fastapi.testclient import TestClient
+from httpx import Response
 
 from service.core.app import create_app
 from service.core.settings import Settings
@@ -257,3 +258,20 @@ def test_overflowing_covariate_is_refused(
     assert response.status_code == 422
     assert response.json()["errors"][0]["column"] == "ad_spend"
     assert row_count(db.settings, "observations") == 0
+
+
+@pytest.mark.storage
+@pytest.mark.parametrize(
+    ("header", "hint"),
+    [
+        ("sku;period;price;units", "the file looks semicolon-separated"),
+        ("SKU,Period,price,units", "column names are lower case: write 'sku', not 'SKU'"),
+    ],
+)
+def test_a_header_that_nearly_fits_says_why(
+    client: TestClient, headers: dict[str, str], header: str, hint: str
+) -> None:
+    body = _csv(header, "TEA-001;2024-01-01;6;1" if ";" in header else "TEA-001,2024-01-01,6,1")
+    response = _post(client, headers, body)
+    assert isinstance(response, Response) and response.status_code == 422
+    assert any(hint in e["message"] for e in response.json()["errors"]), response.json()

@@ -100,6 +100,9 @@ def test_too_little_data_says_how_much_more(
     assert response.status_code == 422
     detail = response.json()["detail"]
     assert "8 usable observations" in detail and "more)" in detail
+    # Both thresholds: what the model needs to be fitted, and what the gate needs to
+    # activate it (settings.gate_min_observations, 30 by default).
+    assert "to become the active fit it needs at least 30" in detail
     assert row_count(db.settings, "fits") == 0
 
 
