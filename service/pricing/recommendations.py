@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import datetime as dt
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Protocol, cast
 
 from sqlalchemy import Table, func, insert, select
@@ -33,6 +33,7 @@ from service.core.errors import (
 )
 from service.core.tables import ProductRow, RecommendationRow, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
+from service.pricing.money import round_recommendation
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 
 
@@ -49,6 +50,8 @@ class PricedProduct(Protocol):
     def min_price(self) -> float | None: ...
     @property
     def max_price(self) -> float | None: ...
+    @property
+    def currency(self) -> str: ...
 
 
 def price_constraints(product: PricedProduct, rules: ConstraintsIn) -> PriceConstraints:
@@ -98,14 +101,15 @@ def price_product(
     scenario: dict[str, float] | None = None,
 ) -> PriceRecommendation:
     """One product's optimal price under the request's rules, the product's own terms
-    filling what the request leaves out (the one place a single price is worked out).
+    filling what the request leaves out (the one place a single price is worked out);
+    prices in the currency's minor unit (:func:`~service.pricing.money.round_recommendation`).
 
     Raises domain errors: :class:`~service.core.errors.WrongSign` when the fit says
     demand rises with price (unless forced), :class:`~service.core.errors.InvalidInput`
     for rules no price meets or numbers the arithmetic cannot handle.
     """
     with library_errors(subject="no price can be recommended from this fit", spec_field="body"):
-        return optimal_price(
+        found = optimal_price(
             fit,
             objective=request.objective,
             unit_cost=request.unit_cost if request.unit_cost is not None else product.unit_cost,
@@ -117,6 +121,7 @@ def price_product(
             curve_points=request.curve_points,
             force=request.force,
         )
+    return round_recommendation(found, product.currency)
 
 
 @dataclass(frozen=True)
@@ -250,7 +255,8 @@ def recommend_family(
             seed=body.seed,
             force=body.force,
         )
-    data = result.to_dict()
+    rounded = tuple(round_recommendation(r, by_sku[r.sku].currency) for r in result.products)
+    data = replace(result, products=rounded).to_dict()
     request = {"family": family, **body.model_dump()}
     priced = [
         Priced(

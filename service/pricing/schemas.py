@@ -93,7 +93,10 @@ class OptimalPriceRequest(Strict):
 
 
 class PricePointOut(BaseModel):
-    price: float | None
+    price: float | None = Field(
+        description="In the minor unit of the product's currency (cents for EUR, none for "
+        "JPY); units, revenue and profit are those of the price the search found"
+    )
     units: float | None
     revenue: float | None
     profit: float | None
@@ -127,7 +130,13 @@ class CurvePointOut(BaseModel):
 
 
 class RecommendationOut(BaseModel):
-    """A recommended price: estimates from past data, for a person to approve."""
+    """A recommended price: estimates from past data, for a person to approve.
+
+    Prices (current, recommended, unconstrained, the uncertainty's price interval) are
+    rounded to the minor unit of the product's currency, never across a constraint: a
+    price on the change cap or a bound is rounded toward the allowed side. `change_pct`
+    compares the rounded prices.
+    """
 
     id: int
     sku: str
