@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 from sqlalchemy.orm import Session
 
-from models import History
+from models import DemandFit, History
 from service.core.errors import InvalidInput
 from service.core.tables import ProductRow
 from service.estimation import histories
@@ -24,6 +24,10 @@ from service.ui.records import ProductInfo, Recommendation, ShownFit
 KINDS = ("demand", "money", "fit-over-time")
 PROMO_COVARIATE = "promo"
 """A covariate of this name above zero marks a promotion week (the demo's convention)."""
+DRAWN_PRICE_FACTOR = 4.0
+"""A current or recommended price further than this factor from the prices the fit saw is
+named in the chart's note instead of drawn (the axis would squeeze the curves flat) and, in
+the money chart, the latest week's price stands in for it."""
 
 
 @dataclass(frozen=True)
@@ -47,6 +51,16 @@ def load_history(session: Session, product: ProductInfo, fit: ShownFit | None) -
     except InvalidInput:  # a sibling named by the spec is gone: plot without its prices
         history = histories.load_history(session, product=row)
     return history if history.n_periods else None
+
+
+def near_seen_prices(fit: DemandFit, price: float | None) -> bool:
+    """Whether a price lies within :data:`DRAWN_PRICE_FACTOR` of the prices the fit saw."""
+    low, high = fit.price_range
+    return (
+        price is not None
+        and math.isfinite(price)
+        and low / DRAWN_PRICE_FACTOR <= price <= high * DRAWN_PRICE_FACTOR
+    )
 
 
 def fit_label(shown: ShownFit) -> str:

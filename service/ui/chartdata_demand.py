@@ -8,7 +8,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from models import DemandFit, History, predict
-from service.ui.chartdata import PROMO_COVARIATE, Subject, fit_label, recommended_price
+from service.ui.chartdata import (
+    PROMO_COVARIATE,
+    Subject,
+    fit_label,
+    near_seen_prices,
+    recommended_price,
+)
 from service.ui.records import ProductInfo, Recommendation
 
 DEMAND_GRID_POINTS = 90
@@ -104,7 +110,18 @@ def _scenario(
 def _grid(fit: DemandFit, *prices: float | None) -> np.ndarray:
     low, high = fit.price_range
     marks = [p for p in (low, high, *prices) if p is not None and math.isfinite(p) and p > 0]
-    return np.linspace(0.85 * min(marks), 1.15 * max(marks), DEMAND_GRID_POINTS)
+    # 1.15 times the largest double is no number: the grid ends at the largest one.
+    top = min(1.15 * max(marks), float(np.finfo(np.float64).max))
+    return np.linspace(0.85 * min(marks), top, DEMAND_GRID_POINTS)
+
+
+def _off_chart_note(fit: DemandFit, **prices: float | None) -> str | None:
+    off = [
+        f"The {name} price {price:.6g} lies far outside the prices the fit saw; it is not drawn."
+        for name, price in prices.items()
+        if price is not None and not near_seen_prices(fit, price)
+    ]
+    return " ".join(off) or None
 
 
 def demand_band(
@@ -113,12 +130,17 @@ def demand_band(
     """Expected units and the prediction interval at each price, via `models.predict`."""
     expected, low, high = [], [], []
     try:
-        for price in prices:
-            point = predict(fit, price=float(price), covariates=scenario, level=level)
-            expected.append(point.expected_units)
-            low.append(point.interval_low)
-            high.append(point.interval_high)
+        # Far from the prices seen, units may pass the largest double: such points are
+        # left out below, not errors.
+        with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+            for price in prices:
+                point = predict(fit, price=float(price), covariates=scenario, level=level)
+                expected.append(point.expected_units)
+                low.append(point.interval_low)
+                high.append(point.interval_high)
     except ValueError:  # a log term met a non-positive value
+        return None
+    except OverflowError:  # a square beyond double precision
         return None
     band = DemandBand(
         price=prices,
@@ -168,13 +190,19 @@ def demand_inputs(subject: Subject) -> DemandInputs:
             note=missing,
         )
     scenario, source = _scenario(fit, subject.recommendation if shown.active else None)
+    off_chart = _off_chart_note(fit, current=current, recommended=recommended)
+    current = current if near_seen_prices(fit, current) else None
+    recommended = recommended if near_seen_prices(fit, recommended) else None
 
     band = demand_band(fit, scenario, _grid(fit, current, recommended))
-    note: str | None = None
+    notes: list[str] = []
     if not shown.active:
-        note = "This fit was rejected by the quality gates; it is shown for diagnosis only."
+        notes.append("This fit was rejected by the quality gates; it is shown for diagnosis only.")
     if band is None:
-        note = (note + " " if note else "") + "The curve cannot be evaluated at these values."
+        notes.append("The curve cannot be evaluated at these values.")
+    if off_chart:
+        notes.append(off_chart)
+    note = " ".join(notes) or None
     return DemandInputs(
         product=product,
         fit_label=fit_label(shown),

@@ -12,7 +12,7 @@ from models import DemandFit
 from service.core.errors import InvalidInput, WrongSign
 from service.pricing.recommendations import price_product
 from service.pricing.schemas import ConstraintsIn, OptimalPriceRequest
-from service.ui.chartdata import Subject, fit_label, recommended_price
+from service.ui.chartdata import Subject, fit_label, near_seen_prices, recommended_price
 from service.ui.records import ProductInfo, Recommendation
 
 CURVE_POINTS = 121
@@ -127,6 +127,22 @@ def _stored_rules(
     )
 
 
+def _near_current_price(
+    product: ProductInfo, fit: DemandFit, request: OptimalPriceRequest
+) -> tuple[OptimalPriceRequest, str | None]:
+    """The request with the latest week's price standing in for a current price far outside
+    the prices the fit saw (such as 1e308), and the note that says so."""
+    given = request.current_price if request.current_price is not None else product.current_price
+    latest = fit.variable_latest.get("price")
+    if given is None or near_seen_prices(fit, given) or latest is None:
+        return request, None
+    note = (
+        f"The current price {given:.6g} lies far outside the prices the fit saw; "
+        f"the latest week's price {latest:.6g} stands in for it."
+    )
+    return request.model_copy(update={"current_price": latest}), note
+
+
 def money_inputs(subject: Subject) -> MoneyInputs:
     """Revenue and profit against price, recomputed with the latest recommendation's rules."""
     product, shown, recommendation = subject.product, subject.fit, subject.recommendation
@@ -143,8 +159,9 @@ def money_inputs(subject: Subject) -> MoneyInputs:
     fit = shown.fit
     same_fit = recommendation is not None and recommendation.fit_id == shown.id
     rules = _stored_rules(product, fit, recommendation)
+    request, stand_in = _near_current_price(product, fit, rules.request)
     try:
-        result = price_product(fit, product, rules.request)
+        result = price_product(fit, product, request)
     except WrongSign as exc:
         return _empty_money(product, label, f"No price is recommended: {exc.reason}")
     except InvalidInput as exc:
@@ -166,14 +183,15 @@ def money_inputs(subject: Subject) -> MoneyInputs:
         current_value = result.current.profit if objective == "profit" else result.current.revenue
     uncertainty = result.uncertainty
     stored = recommended_price(recommendation)
-    note = None
+    notes = [stand_in] if stand_in else []
     if recommendation is not None and not same_fit:
-        note = (
+        notes.append(
             f"The latest recommendation (price {stored:.2f}) was made with another fit; "
             "the curves show the active fit under the same rules."
             if stored is not None
             else "The latest recommendation was made with another fit."
         )
+    note = " ".join(notes) or None
     return MoneyInputs(
         product=product,
         fit_label=label,

@@ -113,7 +113,8 @@ def money_chart(data: MoneyInputs) -> Chart:
                 gid="current-point",
             )
     free = data.unconstrained_price
-    if free is not None and data.best_price is not None and abs(free / data.best_price - 1) > 0.005:
+    best = data.best_price
+    if free is not None and best is not None and abs(free - best) > 0.005 * abs(best):
         lo, hi = float(data.price[0]), float(data.price[-1])
         if lo <= free <= hi:
             ax.axvline(

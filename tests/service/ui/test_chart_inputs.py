@@ -108,3 +108,40 @@ def test_names_with_dollar_signs_are_drawn_literally(
         assert name in drawn, (kind, drawn[:300])
     _view_charts(db, headers, "TEA-NAME")
     _report_has_every_page(db, tmp_path)
+
+
+@pytest.mark.parametrize("current_price", [1e308, 5e-324])
+def test_products_with_extreme_current_prices_chart(
+    client: TestClient, headers: dict[str, str], db: Database, tmp_path: Path, current_price: float
+) -> None:
+    # Item 5: the API accepts any finite positive price (tests/system/test_hostile_numbers.py
+    # relies on it); the money chart divided by zero at such prices.
+    _shop_product(client, headers, "TEA-PRICE", current_price=current_price)
+    drawn = _charts(client, headers, "TEA-PRICE")
+    # The curves are drawn at the prices seen; the note names the price left off the axis.
+    assert "lies far outside the prices the fit saw" in drawn["demand"]
+    assert "expected units (fitted curve)" in drawn["demand"]
+    assert "the latest week's price 6 stands in for it" in drawn["money"]
+    assert "revenue (price x expected units)" in drawn["money"]
+    _view_charts(db, headers, "TEA-PRICE")
+    _report_has_every_page(db, tmp_path)
+
+
+LAST_WEEK = dt.date(2199, 12, 31)
+
+
+@pytest.mark.parametrize(
+    "first",
+    [dt.date(1900, 1, 1), LAST_WEEK - dt.timedelta(weeks=WEEKS - 1)],
+    ids=["first-allowed-period", "last-allowed-period"],
+)
+def test_histories_at_the_ends_of_the_period_range_chart(
+    client: TestClient, headers: dict[str, str], db: Database, tmp_path: Path, first: dt.date
+) -> None:
+    # Item 5: periods from 1900-01-01 to 2199-12-31 are accepted (README "Limits"); the
+    # fit-over-time chart's date axis must hold them, including the week after the last.
+    _shop_product(client, headers, "TEA-DATES", first=first)
+    drawn = _charts(client, headers, "TEA-DATES")
+    assert str(first.year) in drawn["fit-over-time"]
+    _view_charts(db, headers, "TEA-DATES")
+    _report_has_every_page(db, tmp_path)
