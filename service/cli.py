@@ -57,8 +57,9 @@ def _demo(args: argparse.Namespace, settings: Settings) -> int:
 
     summary = demo.load(settings, seed=args.seed)
     print(
-        f"demo catalogue loaded: {summary.products} products, "
-        f"{summary.observations} observations ({summary.inserted} new, {summary.updated} replaced)"
+        f"demo catalogue loaded: {summary.products} products, {summary.observations} "
+        f"observations ({summary.inserted} new, {summary.updated} replaced, "
+        f"{summary.unchanged} unchanged)"
     )
     return 0
 
@@ -82,9 +83,7 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
                 for row in auth.list_keys(session):
                     state = "revoked" if row.revoked_at else "active"
                     used = row.last_used_at.isoformat() if row.last_used_at else "never"
-                    print(
-                        f"{row.id}\t{row.name}\t{','.join(row.scopes)}\t{state}\tlast used {used}"
-                    )
+                    print(f"{row.id}\t{row.name}\t{','.join(row.scopes)}\t{state}\t{used}")
             else:
                 auth.revoke_key(session, key_id=args.key_id)
                 print(f"revoked key {args.key_id}")

@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
 
+from sqlalchemy.orm import Session
+
 from models import Catalogue, ScenarioProduct, generate_catalogue
-from service.catalogue import products
+from service.catalogue import observations, products
 from service.catalogue.ingest import covariates_json
 from service.catalogue.observations import ObservationTuple, observation_writer
 from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.settings import Settings
+from service.core.tables import ProductRow
 
 
 @dataclass(frozen=True)
@@ -19,6 +23,7 @@ class DemoSummary:
     observations: int
     inserted: int
     updated: int
+    unchanged: int = 0
 
 
 def product_fields(product: ScenarioProduct) -> dict[str, object]:
@@ -74,23 +79,60 @@ def observation_rows(product_id: int, product: ScenarioProduct) -> list[Observat
     return rows
 
 
+def _same_product(row: ProductRow | None, fields: dict[str, object]) -> bool:
+    return row is not None and all(getattr(row, name) == value for name, value in fields.items())
+
+
+def _same_history(session: Session, product_id: int, rows: list[ObservationTuple]) -> bool:
+    """Whether the stored history is exactly the generated one (the demo loaded before)."""
+    stored = observations.list_all(session, product_id=product_id)
+    if len(stored) != len(rows):
+        return False
+    return all(
+        (
+            s.period.isoformat(),
+            s.price,
+            s.units,
+            s.unit_cost,
+            s.in_stock,
+            dict(s.covariates or {}),
+        )
+        == (period, price, units, cost, in_stock, json.loads(covariates or "{}"))
+        for s, (_, period, price, units, cost, in_stock, covariates) in zip(
+            stored, rows, strict=True
+        )
+    )
+
+
 def load_catalogue(settings: Settings, catalogue: Catalogue) -> DemoSummary:
-    """Upsert every product and its history in one transaction."""
+    """Upsert every product and its history in one transaction. A product and a history
+    that are already stored as generated are left alone, so loading again changes
+    nothing (no history is marked as changed, so no refit is due)."""
     engine = make_engine(settings)
     try:
         with session_scope(make_session_factory(engine, writer=True)) as session:
             writer = observation_writer(session)
+            unchanged = 0
             for product in catalogue.products:
-                row, _ = products.put(session, sku=product.sku, fields=product_fields(product))
-                writer.write(observation_rows(row.id, product))
+                fields = product_fields(product)
+                row = products.get(session, sku=product.sku)
+                if not _same_product(row, fields):
+                    row, _ = products.put(session, sku=product.sku, fields=fields)
+                assert row is not None
+                rows = observation_rows(row.id, product)
+                if _same_history(session, row.id, rows):
+                    unchanged += len(rows)
+                    continue
+                writer.write(rows)
             inserted, updated = writer.finish()
     finally:
         engine.dispose()
     return DemoSummary(
         products=len(catalogue.products),
-        observations=writer.rows,
+        observations=writer.rows + unchanged,
         inserted=inserted,
         updated=updated,
+        unchanged=unchanged,
     )
 
 

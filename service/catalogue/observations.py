@@ -214,6 +214,17 @@ def observation_writer(session: Session) -> ObservationWriter:
     return SqliteObservationWriter(session)
 
 
+def list_all(session: Session, *, product_id: int) -> list[ObservationRow]:
+    """A product's whole history, oldest first."""
+    return list(
+        session.scalars(
+            select(ObservationRow)
+            .where(ObservationRow.product_id == product_id)
+            .order_by(ObservationRow.period)
+        )
+    )
+
+
 def list_range(
     session: Session,
     *,

@@ -3,12 +3,32 @@
 from __future__ import annotations
 
 import pytest
+import sqlalchemy as sa
 from fastapi.testclient import TestClient
 
 from service.catalogue import demo
+from service.core.db import make_engine
 from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
+
+
+def _stamps(db: Database) -> list[tuple[object, ...]]:
+    engine = make_engine(db.settings)
+    with engine.connect() as conn:
+        rows = conn.execute(
+            sa.text("SELECT sku, updated_at, history_changed_at FROM products ORDER BY sku")
+        ).all()
+    engine.dispose()
+    return [tuple(r) for r in rows]
+
+
+def test_a_changed_history_is_written_again(db: Database) -> None:
+    from models.scenario import generate_catalogue
+
+    demo.load(db.settings, seed=7)
+    other = demo.load_catalogue(db.settings, generate_catalogue(8))
+    assert other.updated > 0 and other.unchanged == 0
 
 
 def test_demo_loads_once_and_reloads_in_place(
@@ -19,8 +39,13 @@ def test_demo_loads_once_and_reloads_in_place(
     assert first.inserted == first.observations and first.updated == 0
     stored = row_count(db.settings, "observations")
     assert stored == first.observations
+    stamps = _stamps(db)
     second = demo.load(db.settings, seed=7)
-    assert (second.inserted, second.updated) == (0, first.observations)
+    # Loading again changes nothing: no row is rewritten and no history is marked as
+    # changed (so a refit job finds nothing to do).
+    assert (second.inserted, second.updated) == (0, 0)
+    assert second.unchanged == first.observations
+    assert _stamps(db) == stamps
     assert row_count(db.settings, "observations") == stored
     assert row_count(db.settings, "products") == 40
 

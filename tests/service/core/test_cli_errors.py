@@ -107,3 +107,4 @@ def test_keys_list_has_a_header(run) -> None:  # type: ignore[no-untyped-def]
     code, out, _ = run("keys", "list")
     assert code == 0
     assert out.splitlines()[0].split("\t") == ["id", "name", "scopes", "state", "last used"]
+    assert out.splitlines()[1].split("\t")[1:] == ["ops", "read", "active", "never"]

@@ -370,3 +370,16 @@ def test_since_takes_only_rfc3339_date_times(
     assert response.status_code == (200 if ok else 422), response.text
     if not ok:
         assert response.json()["errors"][0]["field"].endswith("since")
+
+
+@pytest.mark.storage
+def test_an_unencoded_plus_in_since_is_explained(
+    client: TestClient, headers: dict[str, str]
+) -> None:
+    # A bare "+" in a query string means a space (HTML form encoding), so the offset of
+    # "...+01:00" is lost on the way; the refusal says how to send it.
+    response = client.get("/v1/recommendations?since=2026-12-01T00:00:00+01:00", headers=headers)
+    assert response.status_code == 422
+    assert "%2B" in response.json()["errors"][0]["message"]
+    encoded = client.get("/v1/recommendations?since=2026-12-01T00:00:00%2B01:00", headers=headers)
+    assert encoded.status_code == 200
