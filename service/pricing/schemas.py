@@ -62,12 +62,15 @@ SEARCH_HELP = (
 )
 
 ScenarioValue = Annotated[float, Field(strict=True, allow_inf_nan=False)]
+ScenarioName = Annotated[str, StringConstraints(pattern=NAME_PATTERN)]
+# A family scenario's key is a shared covariate's name or a product's sku.
+ScenarioKey = Annotated[str, StringConstraints(pattern=r"^[A-Za-z0-9_][A-Za-z0-9_.-]{0,63}$")]
 
 
 class OptimalPriceRequest(Strict):
     objective: Objective = "profit"
     constraints: ConstraintsIn = Field(default_factory=ConstraintsIn)
-    scenario: dict[Annotated[str, StringConstraints(pattern=NAME_PATTERN)], ScenarioValue] = Field(
+    scenario: dict[ScenarioName, ScenarioValue] = Field(
         default_factory=dict,
         description="Covariate values and other products' prices (by sku); the rest "
         "stay at the latest fitted period's values",
@@ -179,9 +182,10 @@ class FamilyPriceRequest(Strict):
     max_total_change_pct: Percent | None = Field(
         default=None, description="Cap on the move of the family's unit-weighted price index"
     )
-    scenario: dict[str, Any] = Field(
+    scenario: dict[ScenarioKey, ScenarioValue | dict[ScenarioName, ScenarioValue]] = Field(
         default_factory=dict,
-        description="Shared covariate values, or {sku: {name: value}} for one product",
+        description="Shared covariate values ({name: number}), or {sku: {name: number}} for "
+        "one product; every value a finite number",
     )
     uncertainty_draws: Annotated[int, Field(strict=True, ge=0, le=1000)] = 0
     seed: Annotated[int, Field(strict=True, ge=0)] = 0

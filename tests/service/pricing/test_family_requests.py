@@ -1,0 +1,91 @@
+"""Family price requests the API must refuse with 422 rather than fail on (#13 items 5
+and 8), on SQLite and PostgreSQL.
+
+Promises: README "Errors" (422 is invalid input, with `errors`; no 5xx for a request the
+API accepted) and "Recommended prices" (a family is priced jointly into one total, so its
+products must share one currency).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from typing import Any
+
+import pytest
+from fastapi.testclient import TestClient
+
+from tests.plugins.storage import Database, row_count
+
+pytestmark = pytest.mark.storage
+WEEKS = 40
+
+
+def _fitted(
+    client: TestClient,
+    headers: dict[str, str],
+    sku: str,
+    *,
+    currency: str = "EUR",
+    base: float = 100.0,
+) -> None:
+    fields = {"name": f"Tin {sku}", "family": "green", "currency": currency, "unit_cost": 1.0}
+    assert client.put(f"/v1/products/{sku}", json=fields, headers=headers).status_code == 201
+    rows = [
+        {
+            "period": (dt.date(2024, 1, 1) + dt.timedelta(weeks=k)).isoformat(),
+            "price": 4.0 + (k % 5) * 0.5,
+            "units": base - 10.0 * (k % 5) + (k % 3),
+        }
+        for k in range(WEEKS)
+    ]
+    sent = client.post(
+        f"/v1/products/{sku}/observations", json={"observations": rows}, headers=headers
+    )
+    assert sent.status_code == 200, sent.text
+    fit = client.post(
+        f"/v1/products/{sku}/fits", json={"spec": {"form": "log-log"}}, headers=headers
+    )
+    assert fit.status_code == 201 and fit.json()["status"] == "active", fit.text
+
+
+def _family(client: TestClient, headers: dict[str, str], body: dict[str, Any]) -> Any:
+    return client.post("/v1/families/green/optimal-prices", json=body, headers=headers)
+
+
+@pytest.mark.parametrize(
+    "scenario",
+    [
+        {"x": []},
+        {"x": "warm"},
+        {"x": None},
+        {"x": {"y": {"z": 1.0}}},
+        {"TEA-F1": {"x": [1.0]}},
+        {"TEA-F1": 2.0, "x": {"y": "1"}},
+        [1.0],
+        "promo",
+    ],
+)
+def test_a_family_scenario_of_other_than_numbers_is_refused(
+    client: TestClient, headers: dict[str, str], db: Database, scenario: Any
+) -> None:
+    # Item 5: lists, text, null and nesting reached the library and answered 500.
+    _fitted(client, headers, "TEA-F1")
+    _fitted(client, headers, "TEA-F2", base=80.0)
+    answer = _family(client, headers, {"scenario": scenario})
+    assert answer.status_code == 422, answer.text
+    assert answer.headers["content-type"] == "application/problem+json"
+    assert answer.json()["errors"], answer.text
+    assert row_count(db.settings, "recommendations") == 0
+
+
+def test_a_family_scenario_of_numbers_is_priced(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    # The documented shapes still work: shared values, or {sku: {name: value}}.
+    _fitted(client, headers, "TEA-F1")
+    _fitted(client, headers, "TEA-F2", base=80.0)
+    for scenario in ({}, {"TEA-F1": {}}, {"TEA-F1": {}, "TEA-F2": {}}):
+        answer = _family(client, headers, {"scenario": scenario})
+        assert answer.status_code == 200, (scenario, answer.text)
+    unknown = _family(client, headers, {"scenario": {"TEA-F1": {"weather": 1.0}}})
+    assert unknown.status_code == 422, unknown.text
