@@ -17,7 +17,7 @@ import threading
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from croniter import croniter
+from croniter import CroniterError, croniter
 from sqlalchemy import select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
@@ -30,10 +30,41 @@ from service.jobs import queue as jobs
 logger = logging.getLogger("marginal.schedules")
 
 
+CRON_FIELDS = ("minute", "hour", "day of month", "month", "day of week")
+
+
+def _fires(expression: str) -> bool:
+    """Whether the expression names any time at all, before and after now (31 February
+    never comes; croniter gives up looking)."""
+    start = dt.datetime.now(dt.UTC).replace(tzinfo=None)
+    try:
+        croniter(expression, start).get_next(dt.datetime)
+        croniter(expression, start).get_prev(dt.datetime)
+    except (CroniterError, ValueError, OverflowError):
+        return False
+    return True
+
+
 def check_cron(expression: str, timezone: str) -> None:
     problems = []
-    if not croniter.is_valid(expression):
+    fields = expression.split()
+    if len(fields) != len(CRON_FIELDS):
+        problems.append(
+            ErrorItem(
+                field="cron",
+                message=f"{expression!r} has {len(fields)} fields; a schedule takes five: "
+                + ", ".join(CRON_FIELDS),
+            )
+        )
+    elif not croniter.is_valid(expression):
         problems.append(ErrorItem(field="cron", message=f"{expression!r} is not a cron expression"))
+    elif not _fires(expression):
+        problems.append(
+            ErrorItem(
+                field="cron",
+                message=f"{expression!r} never fires (no month has such a day, as 31 February)",
+            )
+        )
     try:
         ZoneInfo(timezone)
     except (ZoneInfoNotFoundError, ValueError):

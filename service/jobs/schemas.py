@@ -89,7 +89,9 @@ class JobOut(BaseModel):
 
 class ScheduleIn(Strict):
     cron: Annotated[str, StringConstraints(min_length=9, max_length=100)] = Field(
-        description="Five-field cron expression, e.g. `30 2 * * *` (02:30 every day)"
+        description="Five-field cron expression (minute, hour, day of month, month, day of "
+        "week), e.g. `30 2 * * *` (02:30 every day); one that never fires, such as "
+        "`0 0 31 2 *`, is refused"
     )
     timezone: Annotated[str, StringConstraints(min_length=1, max_length=64)] = "UTC"
     job: JobIn
