@@ -195,6 +195,22 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
     ]
 
 
+def _check_one_currency(family: str, currencies: dict[str, str]) -> None:
+    """A family is priced into one total, which cannot add up different currencies."""
+    if len(set(currencies.values())) <= 1:
+        return
+    named = ", ".join(f"{sku} ({currency})" for sku, currency in sorted(currencies.items()))
+    raise InvalidInput(
+        f"the products of family {family!r} are priced in more than one currency, so their "
+        f"prices cannot be weighed into one total: {named}; give them one currency or "
+        "price them one at a time",
+        errors=[
+            ErrorItem(field=f"family.{sku}", message=f"{sku} is priced in {currency}")
+            for sku, currency in sorted(currencies.items())
+        ],
+    )
+
+
 def recommend_family(
     session: Session, *, family: str, body: FamilyPriceRequest
 ) -> tuple[dict[str, Any], list[Priced]]:
@@ -228,6 +244,7 @@ def recommend_family(
     if not fits:
         raise Conflict(f"no product of family {family!r} has an active fit to price with")
     by_sku = {m.sku: m for m in members}
+    _check_one_currency(family, {sku: by_sku[sku].currency for sku in fits})
     for sku, fit in fits.items():
         shared = {k: v for k, v in body.scenario.items() if not isinstance(v, dict)}
         own = body.scenario.get(sku, {})

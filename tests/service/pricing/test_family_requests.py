@@ -89,3 +89,28 @@ def test_a_family_scenario_of_numbers_is_priced(
         assert answer.status_code == 200, (scenario, answer.text)
     unknown = _family(client, headers, {"scenario": {"TEA-F1": {"weather": 1.0}}})
     assert unknown.status_code == 422, unknown.text
+
+
+def test_a_family_of_mixed_currencies_is_refused_naming_each_product(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    # Item 8: a USD product in a EUR family was added into one EUR total. The refusal
+    # names every priced product with its currency, and nothing is stored.
+    _fitted(client, headers, "TEA-F1")
+    _fitted(client, headers, "TEA-F2", base=80.0)
+    _fitted(client, headers, "TEA-F3", currency="USD", base=90.0)
+    answer = _family(client, headers, {})
+    assert answer.status_code == 422, answer.text
+    body = answer.json()
+    for words in ("TEA-F1 (EUR)", "TEA-F2 (EUR)", "TEA-F3 (USD)", "more than one currency"):
+        assert words in body["detail"], body["detail"]
+    assert {e["message"] for e in body["errors"]} == {
+        "TEA-F1 is priced in EUR",
+        "TEA-F2 is priced in EUR",
+        "TEA-F3 is priced in USD",
+    }
+    assert row_count(db.settings, "recommendations") == 0
+    # One currency again: the family is priced.
+    patched = client.patch("/v1/products/TEA-F3", json={"currency": "EUR"}, headers=headers)
+    assert patched.status_code == 200, patched.text
+    assert _family(client, headers, {}).status_code == 200
