@@ -86,3 +86,13 @@ def test_the_readme_examples_run_as_written(tmp_path: Path) -> None:
             )
             assert done.returncode == 0, f"{block}\n--- said:\n{done.stdout}\n{done.stderr}"
     assert _demo_figures(settings) == before
+
+
+def test_the_sample_csv_is_what_its_script_makes() -> None:
+    # README: the sample is simulated from known true parameters by examples/make_history.py.
+    sys.path.insert(0, str(ROOT / "examples"))
+    try:
+        import make_history  # type: ignore[import-not-found]
+    finally:
+        sys.path.remove(str(ROOT / "examples"))
+    assert (ROOT / "examples" / "history.csv").read_text() == make_history.history_csv()
