@@ -47,10 +47,32 @@ class CatalogueRow:
     profit_change: float | None
     profit_change_pct: float | None
     recommendation_stale: bool
+    held_by: str | None  # short names of the constraints holding the price, or "none"
+    held_by_detail: str | None  # the same as a sentence
+    period: str  # the word for one period of the fitted history: week, month, ... or period
+
+
+def fit_period(fit: DemandFit | None) -> str:
+    """The word for one period of the history a fit used (``period`` when unknown)."""
+    if fit is None:
+        return "period"
+    w = fit.window
+    return words.period_word(w.first_period, w.last_period, w.n_window)
+
+
+def _held_by(result: dict[str, Any]) -> tuple[str, str]:
+    binding = [str(b) for b in result.get("binding_constraints") or []]
+    optimum = result.get("optimum")
+    label = words.held_by(str(optimum) if optimum else None, binding)
+    if binding:
+        return label, "The price is held by " + words.rules_words(binding) + "."
+    if optimum == "no_finite_optimum":
+        return label, "The objective keeps improving toward a limit, so the price sits on it."
+    return label, "No constraint holds the price: it is the objective's own best price."
 
 
 def own_elasticity(fit: DemandFit) -> Elasticity | None:
-    """Own-price elasticity at the fitted weeks' means, with its 95% interval and class."""
+    """Own-price elasticity at the fitted periods' means, with its 95% interval and class."""
     try:
         row = models.elasticities(fit, at="mean").own
     except ValueError:
@@ -89,9 +111,11 @@ def catalogue_row(
                 "caution",
             )
         )
+    period = fit_period(shown.fit if shown is not None else None)
     if shown is not None:
-        badges += [words.fit_badge(w.code, w.message) for w in shown.fit.warnings]
+        badges += [words.fit_badge(w.code, w.message, period) for w in shown.fit.warnings]
     current = recommended = change = gain = gain_pct = None
+    held: tuple[str, str] | tuple[None, None] = (None, None)
     stale = False
     if shown is not None and shown.active and recommendation is not None:
         result = recommendation.result
@@ -104,6 +128,7 @@ def catalogue_row(
             gain = after - before
             gain_pct = 100.0 * gain / abs(before) if before else None
         stale = recommendation.fit_id != shown.id
+        held = _held_by(result)
         badges += [
             words.pricing_badge(str(w.get("code")), str(w.get("message")))
             for w in result.get("warnings") or []
@@ -127,6 +152,9 @@ def catalogue_row(
         profit_change=gain,
         profit_change_pct=gain_pct,
         recommendation_stale=stale,
+        held_by=held[0],
+        held_by_detail=held[1],
+        period=period,
     )
 
 
@@ -134,12 +162,13 @@ SORT_KEYS: dict[str, tuple[str, Callable[[CatalogueRow], Any]]] = {
     "sku": ("Product", lambda r: r.product.sku),
     "family": ("Family", lambda r: r.product.family or ""),
     "elasticity": ("Own-price elasticity", lambda r: r.elasticity.value if r.elasticity else None),
-    "r_squared": ("R-squared", lambda r: r.r_squared),
+    "r_squared": ("R²", lambda r: r.r_squared),
     "holdout_wape": ("Hold-out WAPE", lambda r: r.holdout_wape),
     "warnings": ("Warnings", lambda r: len(r.badges)),
     "current_price": ("Current price", lambda r: r.current_price),
     "recommended_price": ("Recommended", lambda r: r.recommended_price),
     "change_pct": ("Change", lambda r: r.change_pct),
+    "held_by": ("Held by", lambda r: r.held_by),
     "profit_change": ("Expected profit change", lambda r: r.profit_change),
 }
 
@@ -163,6 +192,7 @@ class Catalogue:
     page: int
     pages: int
     total: int
+    period: str  # the rows' common period word, else "period"
 
 
 def catalogue(
@@ -196,7 +226,13 @@ def catalogue(
         page=page,
         pages=pages,
         total=len(rows),
+        period=_common_period(rows),
     )
+
+
+def _common_period(rows: list[CatalogueRow]) -> str:
+    found = {r.period for r in rows if r.fit_state != "none"}
+    return found.pop() if len(found) == 1 else "period"
 
 
 @dataclass(frozen=True)
@@ -211,23 +247,46 @@ class ChartView:
 CHART_HEADINGS = {
     "demand": (
         "Demand",
-        "Each point is a past week. The solid line is the expected demand at the stated "
-        "values of the other drivers, the shaded band the range one week's units fall in "
+        "Each point is a past {period}. The solid line is the expected demand at the stated "
+        "values of the other drivers, the shaded band the range one {period}'s units fall in "
         "95 times in 100; dashed parts lie beyond the prices the fit has seen.",
     ),
     "money": (
         "Revenue and profit",
         "Both curves come from the fitted demand. The hatched band holds the prices the "
-        "rules allow; the star is the best price within it, the bar under it the range that "
-        "best price takes when the coefficients are redrawn within their uncertainty.",
+        "constraints allow; the star is the best price within it, the bar under it the range "
+        "that best price takes when the coefficients are redrawn within their uncertainty.",
     ),
     "fit-over-time": (
         "Fit over time",
-        "Actual weekly units against the model's fitted units; the bars below are the "
-        "misses. The shaded weeks at the end were held out and predicted by a fit made "
-        "without them, which is what the hold-out WAPE measures.",
+        "Actual units per {period} against the model's fitted units; the bars below are the "
+        "misses. The shaded {period}s at the end are the hold-out: a separate fit made without "
+        "them scored them, which is what the hold-out WAPE measures; the dashed line over them "
+        "is the full fit's.",
     ),
 }
+
+# What a chart shows when it is a placeholder, so its caption names no mark it lacks.
+PLACEHOLDER_READINGS = {
+    "demand": "Each point is a past {period}. No demand curve is drawn: {why}",
+    "money": "No revenue and profit curves are drawn: {why}",
+    "fit-over-time": "Actual units per {period}. No fitted units are drawn: {why}",
+}
+
+
+def chart_reading(subject: chartdata.Subject, kind: str, period: str) -> str:
+    """The caption under a chart: how to read its marks, or why it has none."""
+    shown = subject.fit
+    why = None
+    if subject.history is None:
+        return "Nothing is drawn yet: this product has no sales history."
+    if shown is None:
+        why = "no demand model has been fitted for this product yet."
+    elif kind == "money" and not shown.active:
+        why = "the fit was rejected by the quality gates, so no price is recommended from it."
+    if why is None:
+        return CHART_HEADINGS[kind][1].format(period=period)
+    return PLACEHOLDER_READINGS[kind].format(period=period, why=why)
 
 
 @dataclass(frozen=True)
@@ -248,6 +307,7 @@ class ProductPage:
     recommendations: list[Recommendation]
     latest: Recommendation | None
     charts: list[ChartView]
+    fit_versions: dict[int, int]  # a fit's id -> its version, as people refer to fits
 
 
 def chart_views(
@@ -259,7 +319,8 @@ def chart_views(
             title, summary = drawn[kind].title, drawn[kind].summary
         else:
             title, summary = chartbook.describe(subject, kind)
-        heading, reading = CHART_HEADINGS[kind]
+        heading = CHART_HEADINGS[kind][0]
+        reading = chart_reading(subject, kind, fit_period(subject.fit.fit if subject.fit else None))
         views.append(ChartView(kind, heading, title, summary, reading))
     return views
 
@@ -283,6 +344,7 @@ def product_page_for(
             elasticity_rows = list(models.elasticities(fit, at="mean").rows)
         except ValueError:
             elasticity_rows = []
+    versions = records.fit_versions(session, product.id)
     return ProductPage(
         product=product,
         shown=shown,
@@ -293,15 +355,16 @@ def product_page_for(
         diagnostics=words.diagnostics(vars(fit.diagnostics), fit.spec.standard_errors)
         if fit is not None
         else [],
-        warnings=[words.fit_badge(w.code, w.message) for w in fit.warnings]
+        warnings=[words.fit_badge(w.code, w.message, fit_period(fit)) for w in fit.warnings]
         if fit is not None
         else [],
         gates=list((shown.gates or {}).get("checks") or []) if shown is not None else [],
         elasticities=elasticity_rows,
         candidate_scores=dict(fit.candidate_scores) if fit is not None else {},
         window=fit.window if fit is not None else None,
-        versions=records.fit_versions(session, product.id),
+        versions=versions,
         recommendations=records.recommendations(session, product.id),
         latest=latest,
         charts=chart_views(subject, drawn),
+        fit_versions={v.id: v.version for v in versions},
     )

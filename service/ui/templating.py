@@ -9,6 +9,7 @@ from typing import Any
 
 from jinja2 import Environment, FileSystemLoader, StrictUndefined, select_autoescape
 
+from service.pricing.money import format_money
 from service.ui import words
 
 TEMPLATE_DIR = Path(__file__).resolve().parent / "templates"
@@ -19,8 +20,9 @@ def _finite(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
-def money(value: Any) -> str:
-    return f"{value:,.2f}" if _finite(value) else "–"
+def money(value: Any, currency: str | None = None) -> str:
+    """A price or an amount to the currency's minor unit (2 decimals when none is given)."""
+    return format_money(float(value), currency, with_code=False) if _finite(value) else "–"
 
 
 def number(value: Any, digits: int = 3) -> str:
@@ -72,7 +74,11 @@ def environment() -> Environment:
         trim_blocks=True,
         lstrip_blocks=True,
     )
-    env.globals.update(rules_words=words.rules_words, pricing_badge=words.pricing_badge)
+    env.globals.update(
+        rules_words=words.rules_words,
+        pricing_badge=words.pricing_badge,
+        gate_label=words.gate_label,
+    )
     env.filters.update(
         money=money,
         number=number,
@@ -81,6 +87,7 @@ def environment() -> Environment:
         pvalue=pvalue,
         when=when,
         sort_value=sort_value,
+        gate_label=words.gate_label,
     )
     return env
 

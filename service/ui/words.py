@@ -5,6 +5,7 @@ Thresholds that are rules of thumb say so where they are shown.
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 from dataclasses import dataclass
 
@@ -25,16 +26,16 @@ class Badge:
 _FIT_WARNINGS = {
     "own_price_positive": ("price effect has the wrong sign", "caution"),
     "own_price_not_significant": ("price effect unclear", "caution"),
-    "few_observations_per_term": ("few weeks per term", "caution"),
+    "few_observations_per_term": ("few {periods} per term", "caution"),
     "low_price_variation": ("price barely varied", "caution"),
     "high_vif": ("drivers overlap", "note"),
-    "stockouts_excluded": ("stockout weeks left out", "note"),
-    "zero_units_dropped": ("zero-sale weeks dropped", "note"),
-    "missing_values_dropped": ("incomplete weeks dropped", "note"),
+    "stockouts_excluded": ("stockout {periods} left out", "note"),
+    "zero_units_dropped": ("zero-sale {periods} dropped", "note"),
+    "missing_values_dropped": ("incomplete {periods} dropped", "note"),
     "terms_dropped": ("terms dropped", "note"),
     "weak_instrument": ("weak instrument", "caution"),
     "near_collinear": ("drivers nearly duplicate each other", "caution"),
-    "window_excluded": ("older weeks outside the window", "note"),
+    "window_excluded": ("older {periods} outside the window", "note"),
 }
 
 _PRICING_WARNINGS = {
@@ -50,9 +51,10 @@ _PRICING_WARNINGS = {
 }
 
 
-def fit_badge(code: str, message: str) -> Badge:
+def fit_badge(code: str, message: str, period: str = "period") -> Badge:
+    """A fit warning's badge; ``period`` is the word for one period of the history."""
     label, level = _FIT_WARNINGS.get(code, (code.replace("_", " "), "note"))
-    return Badge(code, label, message, level)
+    return Badge(code, label.replace("{periods}", period + "s"), message, level)
 
 
 def pricing_badge(code: str, message: str) -> Badge:
@@ -60,37 +62,77 @@ def pricing_badge(code: str, message: str) -> Badge:
     return Badge(code, label, message, level)
 
 
+# Quality gates as a sentence names them, and as a table cell does.
 _GATES = {
-    "expected_sign": "the price effect must be negative",
-    "price_variation": "the price must have varied enough",
-    "enough_observations": "enough weeks of history",
-    "holdout_not_worse": "hold-out error no worse than the active fit's",
+    "expected_sign": ("the price effect must be negative", "price effect negative"),
+    "price_variation": ("the price must have varied enough", "price varied enough"),
+    "enough_observations": ("enough periods of history", "enough periods"),
+    "holdout_not_worse": (
+        "hold-out error no worse than the active fit's",
+        "hold-out error no worse",
+    ),
 }
 
 
 def gate_words(name: str) -> str:
-    return _GATES.get(name, name.replace("_", " "))
+    return _GATES.get(name, (name.replace("_", " "),))[0]
 
 
-_RULES = {
-    "min_price": "the lowest allowed price",
-    "max_price": "the highest allowed price",
-    "max_change_pct": "the largest allowed change from the current price",
-    "min_margin_pct": "the minimum margin",
-    "price_step": "the price step",
-    "price_endings": "the allowed price endings",
-    "max_units": "the stock limit",
-    "min_units": "the volume floor",
-    "observed_price_range": "the guard against prices far from those seen",
+def gate_label(name: str) -> str:
+    """The short name of a quality gate, for a table cell."""
+    return _GATES.get(name, (name, name.replace("_", " ")))[1]
+
+
+# Constraints as a sentence names them, and as a table cell does (docs/glossary.md).
+_CONSTRAINTS = {
+    "min_price": ("the lowest allowed price", "lowest price"),
+    "max_price": ("the highest allowed price", "highest price"),
+    "max_change_pct": ("the change cap (the largest allowed change)", "change cap"),
+    "min_margin_pct": ("the margin floor", "margin floor"),
+    "price_step": ("the price step", "price step"),
+    "price_endings": ("the allowed price endings", "price endings"),
+    "max_units": ("the stock limit", "stock limit"),
+    "min_units": ("the volume floor", "volume floor"),
+    "observed_price_range": ("the guard against prices far from those seen", "prices seen"),
+    "order": ("the order between products", "order"),
+    "max_total_change_pct": ("the family's index cap", "family index cap"),
 }
 
 
+def _constraint(name: str) -> tuple[str, str]:
+    """Plain words for a binding constraint's code, also ``order:A<=B`` and ``SKU.code``."""
+    if name.startswith("order:"):
+        pair = name[len("order:") :].replace("<=", " at most ")
+        return f"the order between products ({pair})", f"order ({pair})"
+    sku, dot, code = name.rpartition(".")
+    if dot and code in _CONSTRAINTS:
+        long, short = _CONSTRAINTS[code]
+        return f"{long} of {sku}", f"{short} of {sku}"
+    plain = name.replace("_", " ")
+    return _CONSTRAINTS.get(name, (plain, plain))
+
+
 def rule_words(name: str) -> str:
-    return _RULES.get(name, name.replace("_", " "))
+    return _constraint(name)[0]
 
 
 def rules_words(names: tuple[str, ...] | list[str]) -> str:
     return ", ".join(rule_words(n) for n in names)
+
+
+def constraint_label(name: str) -> str:
+    """The short name of a binding constraint, for a table cell."""
+    return _constraint(name)[1]
+
+
+def held_by(optimum: str | None, binding: list[str] | tuple[str, ...]) -> str:
+    """What holds a recommended price: its constraints' short names, or "none"."""
+    names = ", ".join(dict.fromkeys(constraint_label(n) for n in binding))
+    if names:
+        return names
+    if optimum == "no_finite_optimum":
+        return "a limit (no peak)"
+    return "none"
 
 
 def elasticity_class_words(value: float, classification: str | None) -> str:
@@ -128,7 +170,8 @@ def diagnostics(figures: dict[str, float | None], standard_errors: str) -> list[
             meaning = "below 1.5: surprises tend to carry into the following weeks; " + (
                 "the chosen Newey-West standard errors allow for that."
                 if standard_errors == "hac"
-                else "intervals may be too narrow; consider standard_errors hac."
+                else "intervals may be too narrow; consider Newey-West (hac) standard errors "
+                "in the spec."
             )
         else:
             meaning = "above 2.5: surprises tend to flip sign from week to week."
@@ -139,7 +182,8 @@ def diagnostics(figures: dict[str, float | None], standard_errors: str) -> list[
             meaning = "the spread of the errors changes with the drivers; " + (
                 "the robust standard errors in use allow for that."
                 if robust
-                else "classical standard errors may mislead; consider hc3."
+                else "classical standard errors may mislead; consider robust (hc3) standard "
+                "errors in the spec."
             )
         else:
             meaning = "no evidence that the spread of the errors changes with the drivers."
@@ -190,3 +234,30 @@ def diagnostics(figures: dict[str, float | None], standard_errors: str) -> list[
             )
         )
     return readings
+
+
+# Spacing of periods in days -> the word for one period (a history's detected period).
+_PERIOD_WORDS = (
+    (0.8, 1.5, "day"),
+    (6.0, 8.0, "week"),
+    (27.0, 32.0, "month"),
+    (88.0, 93.0, "quarter"),
+    (360.0, 370.0, "year"),
+)
+
+
+def period_word(first: str | None, last: str | None, count: int) -> str:
+    """The word for one period of a history: day, week, month, quarter, year or period."""
+    if not first or not last or count < 2:
+        return "period"
+    try:
+        days = (dt.date.fromisoformat(last[:10]) - dt.date.fromisoformat(first[:10])).days
+    except ValueError:
+        return "period"
+    spacing = days / (count - 1)
+    return next((w for low, high, w in _PERIOD_WORDS if low <= spacing <= high), "period")
+
+
+def plural(count: int, word: str, many: str | None = None) -> str:
+    """``1 week``, ``8 weeks``, ``0 weeks``."""
+    return f"{count:,} {word if count == 1 else (many or word + 's')}"

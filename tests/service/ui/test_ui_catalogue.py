@@ -200,6 +200,47 @@ def test_an_analyst_signs_in_sorts_opens_a_product_and_signs_out(
         context.close()
 
 
+def test_the_catalogue_fits_a_screen_and_keeps_prices_in_view_on_narrow_ones(
+    site: tuple[Path, str, Settings], browser: Browser, screenshots: Path
+) -> None:
+    """At 1440 x 900 at least 15 products show at once; at 1024 px wide the product, its
+    recommended price and the change stay inside the window without scrolling sideways."""
+    _, _, settings = site
+    live = settings.model_copy(update={"session_secret": SecretStr("e2e " * 10)})
+    key = make_key(live, "read", name="density")
+    with serve(create_app(live)) as base:
+        context = browser.new_context(viewport={"width": 1440, "height": 900})
+        page = context.new_page()
+        page.goto(f"{base}/ui/sign-in")
+        page.fill("#key", key)
+        page.click("form[action='/ui/sign-in'] button[type=submit]")
+        page.wait_for_url(f"{base}/ui/")
+        rows = page.locator("table.catalogue tbody tr")
+        assert rows.count() == 41
+        heights = [rows.nth(i).bounding_box()["height"] for i in range(rows.count())]  # type: ignore[index]
+        assert max(heights) < 40, max(heights)  # one line a row
+        in_view = sum(
+            1
+            for i in range(rows.count())
+            if (box := rows.nth(i).bounding_box()) is not None and box["y"] + box["height"] <= 900
+        )
+        assert in_view >= 15, in_view
+        assert 900 // (sum(heights) / len(heights)) >= 15
+        page.screenshot(path=str(screenshots / "catalogue-1440.png"))
+
+        page.set_viewport_size({"width": 1024, "height": 768})
+        for sku in ("TEA-002", "TEA-003", "TEA-006"):
+            row = page.locator("table.catalogue tbody tr", has=page.locator(f"a:text-is('{sku}')"))
+            for cell in ("th.product a", "td.recommended", "td.change"):
+                box = row.locator(cell).bounding_box()
+                assert box is not None and box["width"] > 0, (sku, cell)
+                assert box["x"] >= 0 and box["x"] + box["width"] <= 1024, (sku, cell, box)
+                assert box["y"] >= 0 and box["y"] + box["height"] <= 768, (sku, cell, box)
+            assert row.locator("td.recommended").inner_text().strip() not in ("", "–"), sku
+        page.screenshot(path=str(screenshots / "catalogue-1024.png"))
+        context.close()
+
+
 def watch_errors(page: Page) -> list[str]:
     """Script errors and console errors (a blocked resource shows up there too)."""
     errors: list[str] = []
@@ -210,7 +251,7 @@ def watch_errors(page: Page) -> list[str]:
 
 def elasticity_column(page: Page) -> tuple[list[float], list[str]]:
     values = page.eval_on_selector_all(
-        "table.catalogue tbody tr td:nth-child(4)",
+        "table.catalogue tbody tr td.elasticity",
         "cells => cells.map(c => c.getAttribute('data-sort-value'))",
     )
     numbers = [float(v) for v in values if v]
