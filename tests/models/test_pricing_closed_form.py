@@ -56,11 +56,11 @@ def test_markup_rule_factors(elasticity: float, markup: float, source: str) -> N
 @pytest.mark.parametrize(
     ("a", "b", "cost", "profit_price", "revenue_price"),
     [
-        # Bergstrom & Varian, Workouts (9th ed.), problem 25.1: Q = 2000 - 100P, MC = 4;
-        # p* = (a/b + c)/2 (Pindyck & Rubinfeld MR = a - 2bQ; IPT "average of the choke
-        # price and the unit cost") = 12 (answer derived); revenue p_R = a/(2b) = 10
+        # Our own numbers, Q = 1500 - 60P with MC = 5, through the closed form
+        # p* = (a/b + c)/2 (Pindyck & Rubinfeld, MR = a - 2bQ set equal to MC: "the
+        # average of the choke price and the unit cost") = 15; revenue p_R = a/(2b) = 12.5
         # (Fonseca, insightr 2017: P_maxrev = -beta/(2 alpha)).
-        (2000.0, 100.0, 4.0, 12.0, 10.0),
+        (1500.0, 60.0, 5.0, 15.0, 12.5),
         # Derived with the same formulas: a = 100, b = 2, c = 10 -> 30; revenue -> 25.
         (100.0, 2.0, 10.0, 30.0, 25.0),
     ],

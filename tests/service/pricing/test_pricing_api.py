@@ -59,28 +59,28 @@ def recommend(client: TestClient, headers: dict[str, str], sku: str, **body: obj
 
 
 def test_linear_demand_closed_forms(client: TestClient, headers: dict[str, str]) -> None:
-    # q = 2000 - 100 p with unit cost 4 (inputs of Bergstrom & Varian, Workouts in
-    # Intermediate Microeconomics, problem 25.1). Profit maximum p* = (a/b + c)/2 = 12
+    # Our own numbers: q = 1500 - 60 p with unit cost 5. Profit maximum
+    # p* = (a/b + c)/2 = 15 with q = (a - b c)/2 = 600 and profit (a - b c)^2/(4b) = 6000
     # (Pindyck & Rubinfeld, Microeconomics, ch. 10, MR = MC on linear demand); revenue
-    # maximum p = a/(2b) = 10 (where the point elasticity is -1).
+    # maximum p = a/(2b) = 12.5 with revenue 9375 (where the point elasticity is -1).
     exact_product(
         client,
         headers,
         "LIN-1",
-        unit_cost=4.0,
-        prices=_prices(8.0, 16.0),
-        demand=lambda p: 2000 - 100 * p,
+        unit_cost=5.0,
+        prices=_prices(10.0, 20.0),
+        demand=lambda p: 1500 - 60 * p,
         form="linear",
     )
     profit = recommend(client, headers, "LIN-1", objective="profit")
-    assert math.isclose(profit["recommended"]["price"], 12.0, rel_tol=1e-6)
-    assert math.isclose(profit["recommended"]["units"], 800.0, rel_tol=1e-6)
-    assert math.isclose(profit["recommended"]["profit"], 6400.0, rel_tol=1e-6)
+    assert math.isclose(profit["recommended"]["price"], 15.0, rel_tol=1e-6)
+    assert math.isclose(profit["recommended"]["units"], 600.0, rel_tol=1e-6)
+    assert math.isclose(profit["recommended"]["profit"], 6000.0, rel_tol=1e-6)
     assert profit["binding_constraints"] == [] and profit["warnings"] == []
-    assert math.isclose(profit["unconstrained_price"], 12.0, rel_tol=1e-6)
+    assert math.isclose(profit["unconstrained_price"], 15.0, rel_tol=1e-6)
     revenue = recommend(client, headers, "LIN-1", objective="revenue")
-    assert math.isclose(revenue["recommended"]["price"], 10.0, rel_tol=1e-6)
-    assert math.isclose(revenue["recommended"]["revenue"], 10000.0, rel_tol=1e-6)
+    assert math.isclose(revenue["recommended"]["price"], 12.5, rel_tol=1e-6)
+    assert math.isclose(revenue["recommended"]["revenue"], 9375.0, rel_tol=1e-6)
 
 
 @pytest.mark.parametrize("form", ["log-log", "poisson"])
