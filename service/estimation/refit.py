@@ -54,6 +54,7 @@ def select_candidates(
     latest_fit = (
         select(FitRow.product_id, func.max(FitRow.created_at).label("at"))
         .where(or_(FitRow.job_id.is_(None), FitRow.job_id != job.id))
+        .where(true() if within is None else FitRow.product_id.between(*within))
         .group_by(FitRow.product_id)
         .subquery()
     )
