@@ -126,7 +126,10 @@ def warnings_from_figures(
         found.append(
             FitWarning(
                 OWN_PRICE_NOT_SIGNIFICANT,
-                f"The own-price effect is not significant at 5% (p = {own_p_value:.3g}).",
+                f"The own-price effect is not significant at 5% (p = {own_p_value:.3g})."
+                if math.isfinite(own_p_value)
+                else "The own-price effect cannot be told from zero: the fitted periods leave "
+                "no residual variation to judge it by.",
             )
         )
     n_terms = len(terms)

@@ -38,6 +38,7 @@ RANK_TOLERANCE: Final = 1e-13
 """Relative size of a QR diagonal below which the stacked solver hands a product to the
 single-product path, where a pivoted QR decides its rank (a routing flag, never a rank
 decision by itself)."""
+_EPS: Final = float(np.finfo(np.float64).eps)
 NORMAL_GRAM_LIMIT: Final = 1e8
 """Largest diagonal of the inverse unit-diagonal cross-product the normal equations are
 trusted with; beyond it the product takes the QR path."""
@@ -232,6 +233,13 @@ def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
         columns = np.where(np.isfinite(columns), columns, 0.0)
     y_mean = response.mean(axis=1)
     yc = response - y_mean[:, None]
+    # A response that never varies (up to rounding in its mean) is fitted exactly: every
+    # slope is 0 and the residuals vanish, rather than rounding noise read as an effect.
+    flat = np.abs(yc).max(axis=1) <= 4.0 * _EPS * np.abs(y_mean)
+    if flat.any():
+        response = np.where(flat[:, None], response[:, :1], response)
+        y_mean = np.where(flat, response[:, 0], y_mean)
+        yc[flat] = 0.0
 
     if method == "normal":
         gram = cross / scale[:, :, None] / scale[:, None, :]
