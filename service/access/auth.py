@@ -16,7 +16,7 @@ import time
 from dataclasses import dataclass
 from typing import Literal
 
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
 from service.core.errors import Forbidden, NotFound, Unauthenticated
@@ -147,9 +147,14 @@ def authenticate(session: Session, authorization: str | None) -> tuple[Principal
 
 
 def touch_key(session: Session, *, key_id: str) -> None:
-    row = session.get(ApiKeyRow, key_id)
-    if row is not None:
-        row.last_used_at = utcnow()
+    """Note that the key was used. Never waits for a lock: on PostgreSQL a key row that
+    another transaction holds (a revocation) is skipped, and the next request tries again."""
+    locked = select(ApiKeyRow.id).where(ApiKeyRow.id == key_id).with_for_update(skip_locked=True)
+    session.execute(
+        update(ApiKeyRow)
+        .where(ApiKeyRow.id.in_(locked.scalar_subquery()))
+        .values(last_used_at=utcnow())
+    )
 
 
 def require(principal: Principal, scope: Scope) -> None:

@@ -22,7 +22,7 @@ from service.catalogue import product_routes as products
 from service.core import docs_pages, logs, metrics, problems
 from service.core import health_routes as health
 from service.core import metrics_routes as metrics_route
-from service.core.db import make_engine, make_session_factory
+from service.core.db import make_engine, make_no_wait_factory, make_session_factory
 from service.core.group_commit import GroupWriter
 from service.core.limits import BodySizeLimit
 from service.core.settings import Settings, get_settings
@@ -79,6 +79,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.read_sessions = make_session_factory(engine, writer=False)
     app.state.write_sessions = make_session_factory(engine, writer=True)
+    app.state.touch_sessions = make_no_wait_factory(engine)
     app.state.bulk_sessions = make_session_factory(engine, writer=True, bulk_load=True)
     app.state.recommendation_writer = GroupWriter(app.state.write_sessions, pricing_service.store)
 

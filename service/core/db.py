@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import threading
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -33,7 +34,7 @@ def make_engine(settings: Settings) -> Engine:
         )
         queue = _WriterQueue(settings.sqlite_busy_timeout_ms / 1000)
         event.listen(engine, "connect", _sqlite_on_connect(settings.sqlite_busy_timeout_ms))
-        event.listen(engine, "begin", _sqlite_on_begin(queue))
+        event.listen(engine, "begin", _sqlite_on_begin(queue, settings.sqlite_busy_timeout_ms))
         for name in ("commit", "rollback"):
             event.listen(engine, name, queue.leave)
         event.listen(engine.pool, "reset", queue.on_reset)
@@ -93,9 +94,19 @@ class _WriterQueue:
         self._lock = threading.Lock()
         self._timeout_s = timeout_s
 
-    def enter(self, conn: Connection) -> None:
+    def enter(self, conn: Connection) -> float:
+        """Wait for this process's turn (at most the busy timeout); the seconds waited."""
+        start = time.monotonic()
         if self._lock.acquire(timeout=self._timeout_s):
             conn.info[self._HELD] = True
+        return time.monotonic() - start
+
+    def try_enter(self, conn: Connection) -> bool:
+        """Take the turn only if no writer of this process holds it."""
+        if self._lock.acquire(blocking=False):
+            conn.info[self._HELD] = True
+            return True
+        return False
 
     def leave(self, conn: Connection) -> None:
         self._release(conn.info)
@@ -112,7 +123,23 @@ class _WriterQueue:
             self._lock.release()
 
 
-def _sqlite_on_begin(queue: _WriterQueue) -> Any:
+class WriteBusy(Exception):
+    """A write that must not wait found the database's write lock taken."""
+
+
+def _begin_immediate(conn: Connection, wait_ms: int, busy_timeout_ms: int) -> None:
+    """BEGIN IMMEDIATE waiting at most ``wait_ms`` for the lock, then the usual timeout."""
+    if wait_ms >= busy_timeout_ms:
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+        return
+    conn.exec_driver_sql(f"PRAGMA busy_timeout={max(wait_ms, 0)}")
+    try:
+        conn.exec_driver_sql("BEGIN IMMEDIATE")
+    finally:
+        conn.exec_driver_sql(f"PRAGMA busy_timeout={busy_timeout_ms}")
+
+
+def _sqlite_on_begin(queue: _WriterQueue, busy_timeout_ms: int) -> Any:
     def on_begin(conn: Connection) -> None:
         # Writers take the write lock at BEGIN: a transaction that reads and then writes
         # cannot fail on lock upgrade, and busy_timeout makes concurrent writers wait
@@ -124,10 +151,22 @@ def _sqlite_on_begin(queue: _WriterQueue) -> Any:
             # time) can prove nothing; checkin turns them back on.
             conn.exec_driver_sql("PRAGMA foreign_keys=OFF")
             conn.info[_FOREIGN_KEYS_OFF] = True
-        if options.get("writer"):
-            queue.enter(conn)
+        if options.get("no_wait"):
+            # A write that may be skipped (a key's last-used time): never wait for
+            # another writer, of this process or another.
+            if not queue.try_enter(conn):
+                raise WriteBusy("another writer of this process holds the database")
             try:
-                conn.exec_driver_sql("BEGIN IMMEDIATE")
+                _begin_immediate(conn, 0, busy_timeout_ms)
+            except BaseException:
+                queue.leave(conn)
+                raise
+        elif options.get("writer"):
+            # The busy timeout bounds the whole wait: the turn in this process's queue
+            # and then the database's lock, not each of them.
+            waited_ms = int(queue.enter(conn) * 1000)
+            try:
+                _begin_immediate(conn, busy_timeout_ms - waited_ms, busy_timeout_ms)
             except BaseException:
                 queue.leave(conn)
                 raise
@@ -153,6 +192,16 @@ def make_session_factory(
     for bulk loads of observations whose product ids the load itself resolves."""
     bind = engine.execution_options(writer=True, bulk_load=bulk_load) if writer else engine
     return sessionmaker(bind=bind, expire_on_commit=False)
+
+
+def make_no_wait_factory(engine: Engine) -> sessionmaker[Session]:
+    """Write sessions for work that may be skipped: on SQLite, beginning one raises
+    :class:`WriteBusy` or a "database is locked" error at once instead of waiting for the
+    write lock. (On PostgreSQL they are ordinary write sessions; statements that must not
+    wait there use ``SKIP LOCKED``.)"""
+    return sessionmaker(
+        bind=engine.execution_options(writer=True, no_wait=True), expire_on_commit=False
+    )
 
 
 @contextmanager

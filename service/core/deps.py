@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 from collections.abc import Iterator
 from typing import Annotated, Any
 
@@ -9,13 +10,16 @@ from fastapi import Depends, Header, Request
 from fastapi.concurrency import run_in_threadpool
 from fastapi.params import Depends as DependsParam
 from sqlalchemy import Engine
+from sqlalchemy.exc import OperationalError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.access import auth
 from service.access.auth import Principal, Scope
-from service.core.db import session_scope
+from service.core.db import WriteBusy, session_scope
 from service.core.group_commit import GroupWriter
 from service.core.settings import Settings
+
+log = logging.getLogger("marginal.keys")
 
 
 async def get_settings_dep(request: Request) -> Settings:
@@ -84,12 +88,24 @@ def _lookup_caller(request: Request, authorization: str | None) -> Principal:
     # holding two connections at once lets concurrent writers take every pooled
     # connection while each waits for a second one.
     if stale:
-        with session_scope(_factory(request, "write_sessions")) as writer:
-            auth.touch_key(writer, key_id=principal.key_id)
+        _touch(request, principal.key_id)
     settings: Settings = request.app.state.settings
     if authorization and settings.auth_cache_seconds > 0:
         auth.verified_keys.put(_database(settings), authorization, principal)
     return principal
+
+
+def _touch(request: Request, key_id: str) -> None:
+    """Note the key's use without ever holding up the request: on SQLite a write lock held
+    by anyone else means no wait but no note (the time is a minute coarse anyway, and the
+    next request tries again); any database error here is logged, never answered."""
+    try:
+        with session_scope(_factory(request, "touch_sessions")) as writer:
+            auth.touch_key(writer, key_id=key_id)
+    except WriteBusy:
+        log.debug("key %s: last-used time left for later, a writer holds the database", key_id)
+    except OperationalError as exc:
+        log.info("key %s: last-used time left for later (%s)", key_id, exc.orig)
 
 
 async def _caller(
