@@ -3,7 +3,9 @@
 Signing in exchanges a read key for a cookie that carries only the key's id, signed
 with the service's session secret (itsdangerous, timestamped). Every page checks the
 key again, so revoking the key ends its sessions at once; the secret itself never
-leaves the form post that carried it.
+leaves the form post that carried it. The cookie also carries the key's sign-out count:
+signing out counts it up, which ends the key's sessions on the server, so a copied cookie
+stops working too.
 """
 
 from __future__ import annotations
@@ -17,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from itsdangerous import BadSignature, URLSafeTimedSerializer
+from sqlalchemy import update
 from sqlalchemy.orm import Session
 
 from service.access import auth
@@ -68,20 +71,32 @@ def _serializer(settings: Settings) -> URLSafeTimedSerializer:
     return URLSafeTimedSerializer(session_secret(settings), salt=_SALT)
 
 
-def sign(settings: Settings, key_id: str) -> str:
-    return _serializer(settings).dumps({"key": key_id})
+def sign(settings: Settings, viewer: Viewer) -> str:
+    return _serializer(settings).dumps({"key": viewer.key_id, "generation": viewer.generation})
 
 
-def key_id_from_cookie(settings: Settings, value: str | None) -> str | None:
-    """The key id a valid, unexpired cookie carries; None for anything else."""
+@dataclass(frozen=True)
+class CookieSession:
+    """What a valid cookie says: the key's id and the sign-out count it was signed with."""
+
+    key_id: str
+    generation: int
+
+
+def from_cookie(settings: Settings, value: str | None) -> CookieSession | None:
+    """The session a valid, unexpired cookie carries; None for anything else."""
     if not value:
         return None
     try:
         data = _serializer(settings).loads(value, max_age=settings.session_max_age_seconds)
     except BadSignature:  # also covers an expired signature
         return None
-    key_id = data.get("key") if isinstance(data, dict) else None
-    return key_id if isinstance(key_id, str) else None
+    if not isinstance(data, dict):
+        return None
+    key_id, generation = data.get("key"), data.get("generation")
+    if not isinstance(key_id, str) or type(generation) is not int:
+        return None
+    return CookieSession(key_id=key_id, generation=generation)
 
 
 @dataclass(frozen=True)
@@ -90,16 +105,32 @@ class Viewer:
 
     key_id: str
     name: str
+    generation: int
 
 
-def viewer_for(session: Session, key_id: str | None) -> Viewer | None:
-    """The signed-in viewer, if the key still exists, is not revoked and can read."""
-    if key_id is None:
+def viewer_for(session: Session, cookie: CookieSession | None) -> Viewer | None:
+    """The signed-in viewer, if the key still exists, is not revoked, can read, and has not
+    signed out since the cookie was signed."""
+    if cookie is None:
         return None
-    row = session.get(ApiKeyRow, key_id)
+    row = session.get(ApiKeyRow, cookie.key_id)
     if row is None or row.revoked_at is not None or "read" not in row.scopes:
         return None
-    return Viewer(key_id=row.id, name=row.name)
+    if row.view_generation != cookie.generation:
+        return None
+    return Viewer(key_id=row.id, name=row.name, generation=row.view_generation)
+
+
+def end_sessions(session: Session, cookie: CookieSession | None) -> None:
+    """Sign out: every view session of the cookie's key ends (its cookies, copies
+    included, are refused from now on). A cookie already ended changes nothing."""
+    if cookie is None:
+        return
+    session.execute(
+        update(ApiKeyRow)
+        .where(ApiKeyRow.id == cookie.key_id, ApiKeyRow.view_generation == cookie.generation)
+        .values(view_generation=ApiKeyRow.view_generation + 1)
+    )
 
 
 def check_key(session: Session, key: str) -> tuple[Viewer | None, str]:
@@ -110,4 +141,6 @@ def check_key(session: Session, key: str) -> tuple[Viewer | None, str]:
         return None, "That key was not accepted: it is unknown, revoked or mistyped."
     if not principal.allows("read"):
         return None, "That key lacks the read scope these pages need."
-    return Viewer(key_id=principal.key_id, name=principal.name), ""
+    row = session.get(ApiKeyRow, principal.key_id)
+    generation = row.view_generation if row is not None else 0
+    return Viewer(key_id=principal.key_id, name=principal.name, generation=generation), ""

@@ -98,6 +98,9 @@ class ApiKeyRow(Base):
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
     last_used_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
     revoked_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    # Signing out of the analyst view counts this up, which ends every view session
+    # signed in with the key (a session cookie carries the count it was signed with).
+    view_generation: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
 
 
 class FitRow(Base):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 from typing import Annotated, Literal
-from urllib.parse import parse_qs, urlencode
+from urllib.parse import parse_qs, urlencode, urlsplit
 
 from fastapi import APIRouter, Header, Path, Query, Request, Response
 from fastapi.responses import HTMLResponse, RedirectResponse
@@ -109,8 +109,8 @@ def _settings(request: Request) -> Settings:
 
 def signed_in(request: Request, db: Session) -> Viewer | None:
     settings = _settings(request)
-    key_id = session.key_id_from_cookie(settings, request.cookies.get(COOKIE_NAME))
-    viewer = session.viewer_for(db, key_id)
+    cookie = session.from_cookie(settings, request.cookies.get(COOKIE_NAME))
+    viewer = session.viewer_for(db, cookie)
     if viewer is not None:
         request.state.key_id = viewer.key_id  # for the access log (the id, never the key)
     return viewer
@@ -239,10 +239,17 @@ def next_message(request: Request) -> tuple[str, str]:
 
 
 def _same_origin(request: Request) -> bool:
+    """A form post from these pages: its Origin is this site's, or, when a browser sends
+    no Origin, its Referer is (neither header at all: a script, let through)."""
+    here = f"{request.url.scheme}://{request.url.netloc}"
     origin = request.headers.get("origin")
-    if origin is None or origin == "null":
-        return origin is None
-    return origin == f"{request.url.scheme}://{request.url.netloc}"
+    if origin is not None:
+        return origin == here  # "null" (a sandboxed or opaque origin) is never here
+    referer = request.headers.get("referer")
+    if referer is None:
+        return True
+    parts = urlsplit(referer)
+    return f"{parts.scheme}://{parts.netloc}" == here
 
 
 def _secure(request: Request) -> bool:
@@ -286,7 +293,7 @@ async def sign_in(request: Request) -> Response:
     response = RedirectResponse(next_path, status_code=303, headers=PAGE_HEADERS)
     response.set_cookie(
         COOKIE_NAME,
-        session.sign(settings, viewer.key_id),
+        session.sign(settings, viewer),
         max_age=settings.session_max_age_seconds,
         path=UI_PREFIX,
         httponly=True,
@@ -298,6 +305,12 @@ async def sign_in(request: Request) -> Response:
 
 @ui.post("/sign-out")
 def sign_out(request: Request) -> RedirectResponse:
+    cookie = session.from_cookie(_settings(request), request.cookies.get(COOKIE_NAME))
+    if cookie is not None:
+        request.state.key_id = cookie.key_id
+        factory: sessionmaker[Session] = request.app.state.write_sessions
+        with session_scope(factory) as db:
+            session.end_sessions(db, cookie)
     response = RedirectResponse(
         f"{UI_PREFIX}/sign-in?signed_out", status_code=303, headers=PAGE_HEADERS
     )

@@ -342,7 +342,8 @@ def test_sign_in_sets_a_signed_http_only_strict_cookie_and_sign_out_clears_it(
     key_id, secret = shop.read.split("_")[1], shop.read.split("_", 2)[2]
     assert secret not in value
     payload = URLSafeTimedSerializer(SECRET, salt="marginal.ui.session").loads(value)
-    assert payload == {"key": key_id}  # the key's id, signed; nothing else
+    # The key's id and its sign-out count, signed; nothing else.
+    assert set(payload) == {"key", "generation"} and payload["key"] == key_id
     assert client.get("/ui/products/TEA-002").status_code == 200
     out = client.post("/ui/sign-out", follow_redirects=False)
     assert out.status_code == 303 and out.headers["location"] == "/ui/sign-in?signed_out"
