@@ -50,6 +50,16 @@ def hash_secret(secret: str) -> str:
     return hashlib.sha256(secret.encode()).hexdigest()
 
 
+# Compared with when a key's id is unknown: 64 hex digits no SHA-256 output is known to
+# equal (a hash of text no key can contain).
+DUMMY_HASH = hashlib.sha256(b"\x00no key has this secret\x00").hexdigest()
+
+
+def verify(expected: str, given: str) -> bool:
+    """Constant-time comparison of two hex hashes."""
+    return hmac.compare_digest(expected, given)
+
+
 def create_key(session: Session, *, name: str, scopes: list[str]) -> NewKey:
     key_id = secrets.token_hex(6)
     secret = secrets.token_urlsafe(32)
@@ -135,10 +145,12 @@ def authenticate(session: Session, authorization: str | None) -> tuple[Principal
     scheme, _, token = authorization.partition(" ")
     parsed = parse_token(token.strip()) if scheme.lower() == "bearer" else None
     row = session.get(ApiKeyRow, parsed[0]) if parsed else None
-    # Compare even when the id is unknown, so both failures take the same time.
-    expected = row.secret_hash if row is not None else "0" * 64
-    given = hash_secret(parsed[1]) if parsed else ""
-    if not hmac.compare_digest(expected, given) or row is None or row.revoked_at is not None:
+    # The same work whether the id is known or not: hash what was given and compare it
+    # with the stored hash, or with a dummy hash that nothing matches, so a wrong secret
+    # and an unknown id cost the same and timing tells neither apart.
+    expected = row.secret_hash if row is not None else DUMMY_HASH
+    given = hash_secret(parsed[1] if parsed else token)
+    if not verify(expected, given) or row is None or row.revoked_at is not None:
         raise Unauthenticated("the API key is unknown or revoked")
     last = row.last_used_at
     # Coarse, so that reads do not write on every request.

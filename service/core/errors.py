@@ -99,6 +99,33 @@ class Unavailable(ServiceError):
     """The database cannot be reached right now; retrying later may work."""
 
 
+class StorageFull(Unavailable):
+    """The database's storage is full: nothing more can be written until room is made."""
+
+
+SQLITE_FULL = 13  # SQLite's result code for "database or disk is full"
+DISK_FULL_SQLSTATE = "53100"  # PostgreSQL's disk_full
+
+
+def is_storage_full(exc: BaseException) -> bool:
+    """Whether a database error says its storage is full (SQLite's SQLITE_FULL,
+    PostgreSQL's SQLSTATE 53100), as opposed to the database being out of reach."""
+    orig = exc.orig if isinstance(exc, DBAPIError) else exc
+    if getattr(orig, "sqlstate", None) == DISK_FULL_SQLSTATE:
+        return True
+    if getattr(orig, "sqlite_errorcode", None) == SQLITE_FULL:
+        return True
+    return "database or disk is full" in str(orig)
+
+
+def database_cause(exc: BaseException) -> str:
+    """The driver's error class and first line, for logs: never the statement's values."""
+    orig = exc.orig if isinstance(exc, DBAPIError) else exc
+    text = str(orig).strip()
+    first = text.splitlines()[0][:300] if text else ""
+    return f"{type(orig).__name__}: {first}" if first else type(orig).__name__
+
+
 class ClusterUnavailable(Unavailable):
     """A job's cluster cannot be reached or started, or cannot be used with this database."""
 

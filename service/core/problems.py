@@ -28,10 +28,13 @@ from service.core.errors import (
     NotFound,
     PayloadTooLarge,
     ServiceError,
+    StorageFull,
     Unauthenticated,
     Unavailable,
     UnsupportedMediaType,
+    database_cause,
     from_library,
+    is_storage_full,
 )
 
 PROBLEM_JSON = "application/problem+json"
@@ -62,6 +65,9 @@ PROBLEM_TYPES: dict[type[ServiceError], ProblemType] = {
     Forbidden: ProblemType(403, "forbidden", "The API key lacks the required scope"),
     Unavailable: ProblemType(
         503, "database-unavailable", "Service temporarily unavailable", (("Retry-After", "5"),)
+    ),
+    StorageFull: ProblemType(
+        503, "storage-full", "The database's storage is full", (("Retry-After", "60"),)
     ),
 }
 BAD_REQUEST = ProblemType(400, "bad-request", "Bad request")
@@ -163,10 +169,29 @@ def install(app: FastAPI) -> None:
         return problem_response(kind, str(exc.detail), instance=request.url.path)
 
     async def _database_error(request: Request, exc: Exception) -> JSONResponse:
+        if is_storage_full(exc):
+            logger.error(
+                "database storage is full on %s %s (%s)",
+                request.method,
+                request.url.path,
+                database_cause(exc),
+            )
+            return error_response(
+                StorageFull(
+                    "The database's storage is full, so nothing could be written; "
+                    "nothing was stored. Retry once an operator has made room."
+                ),
+                instance=request.url.path,
+            )
         if isinstance(exc, DBAPIError) and not _is_outage(exc):
             logger.exception("database error on %s %s", request.method, request.url.path)
             return problem_response(INTERNAL, INTERNAL_DETAIL, instance=request.url.path)
-        logger.warning("database unavailable on %s %s", request.method, request.url.path)
+        logger.warning(
+            "database unavailable on %s %s (%s)",
+            request.method,
+            request.url.path,
+            database_cause(exc),
+        )
         return error_response(
             Unavailable("The database cannot be reached right now; retry shortly."),
             instance=request.url.path,

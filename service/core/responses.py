@@ -15,7 +15,8 @@ _DESCRIPTIONS = {
     413: "The request body is larger than the configured limit",
     415: "The request body has the wrong content type",
     422: "The input is invalid; `errors` says where and why",
-    503: "The database is unreachable; retry after the Retry-After delay",
+    503: "The database is unreachable, or its storage is full (type `storage-full`); retry "
+    "after the Retry-After delay",
 }
 
 
