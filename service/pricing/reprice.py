@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 from sqlalchemy import insert, select
@@ -10,7 +11,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.core.db import session_scope
 from service.core.errors import ServiceError, WrongSign, failure_reason, is_outage
 from service.core.settings import Settings
-from service.core.tables import FitRow, ProductRow, RecommendationRow, utcnow
+from service.core.tables import FitRow, JobRow, ProductRow, RecommendationRow, utcnow
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
 from service.jobs import queue as jobs
@@ -30,16 +31,8 @@ def run_reprice(
     progress.counts["recommended"] = 0
     with session_scope(reads) as session:
         job = jobs.get_or_raise(session, job_id=job_id)
-        request = OptimalPriceRequest.model_validate((job.options or {}).get("request") or {})
-        rows = session.execute(
-            select(ProductRow, FitRow.id, FitRow.created_at)
-            .outerjoin(FitRow, (FitRow.product_id == ProductRow.id) & (FitRow.status == ACTIVE))
-            .where(jobs.scope_filter(job.scope))
-            .order_by(ProductRow.sku)
-        ).all()
-        products = [(row[0], row[1], row[2]) for row in rows]
-        for product, _, _ in products:
-            session.expunge(product)
+        request = job_request(job)
+        products = candidates(session, job=job)
     found = {p.sku for p, _, _ in products}
     for sku in job.scope.get("skus", []):
         if sku not in found:
@@ -51,45 +44,8 @@ def run_reprice(
     size = settings.job_batch_size
     for start in range(0, len(products), size):
         batch = products[start : start + size]
-        records: list[dict[str, Any]] = []
         with session_scope(reads) as session:
-            for product, fit_id, created_at in batch:
-                if fit_id is None:
-                    progress.counts["skipped"] += 1
-                    progress.add_error(product.sku, "skipped: no active fit")
-                    continue
-                try:
-                    fit = fit_cache.get(session, fit_id, created_at)
-                    scenario = {
-                        k: v for k, v in request.scenario.items() if k in fit.variable_means
-                    }
-                    result = price_product(fit, product, request, scenario=scenario)
-                    record = result.to_dict()
-                except WrongSign as exc:
-                    progress.counts["failed"] += 1
-                    progress.add_error(product.sku, f"refused: {exc.reason}")
-                    continue
-                except ServiceError as exc:
-                    progress.counts["failed"] += 1
-                    progress.add_error(product.sku, exc.detail)
-                    continue
-                except Exception as exc:  # a stored value that cannot be used: this product only
-                    if is_outage(exc):
-                        raise
-                    progress.counts["failed"] += 1
-                    progress.add_error(product.sku, failure_reason(exc))
-                    continue
-                progress.counts["recommended"] += 1
-                records.append(
-                    {
-                        "product_id": product.id,
-                        "fit_id": fit_id,
-                        "objective": request.objective,
-                        "request": {"job_id": job_id, **request.model_dump()},
-                        "result": record,
-                        "created_at": utcnow(),
-                    }
-                )
+            records = price_batch(session, batch, request, job_id, progress)
         with session_scope(writes) as session:
             if records:
                 session.execute(insert(RecommendationRow), records)
@@ -98,3 +54,78 @@ def run_reprice(
         if on_progress:
             on_progress(progress)
     return progress
+
+
+Candidate = tuple[ProductRow, int | None, Any]
+"""A product in a reprice job's scope, its active fit's id and creation time (or None)."""
+
+
+def job_request(job: JobRow) -> OptimalPriceRequest:
+    """The request a reprice job prices every product with (checked when it was queued)."""
+    return OptimalPriceRequest.model_validate((job.options or {}).get("request") or {})
+
+
+def candidates(
+    session: Session, *, job: JobRow, id_range: tuple[int, int] | None = None
+) -> list[Candidate]:
+    """The products in the job's scope (within ``id_range`` for a partition), by sku,
+    detached from the session, with their active fit's id and creation time."""
+    query = (
+        select(ProductRow, FitRow.id, FitRow.created_at)
+        .outerjoin(FitRow, (FitRow.product_id == ProductRow.id) & (FitRow.status == ACTIVE))
+        .where(jobs.scope_filter(job.scope))
+        .order_by(ProductRow.sku)
+    )
+    if id_range is not None:
+        query = query.where(ProductRow.id.between(*id_range))
+    found: list[Candidate] = [(row[0], row[1], row[2]) for row in session.execute(query).all()]
+    for product, _, _ in found:
+        session.expunge(product)
+    return found
+
+
+def price_batch(
+    session: Session,
+    batch: Sequence[Candidate],
+    request: OptimalPriceRequest,
+    job_id: int,
+    progress: jobs.Progress,
+) -> list[dict[str, Any]]:
+    """A batch's recommendations to store (one per product with an active fit); the
+    others are counted as skipped or failed with their reason, each product alone."""
+    records: list[dict[str, Any]] = []
+    for product, fit_id, created_at in batch:
+        if fit_id is None:
+            progress.counts["skipped"] += 1
+            progress.add_error(product.sku, "skipped: no active fit")
+            continue
+        try:
+            fit = fit_cache.get(session, fit_id, created_at)
+            scenario = {k: v for k, v in request.scenario.items() if k in fit.variable_means}
+            record = price_product(fit, product, request, scenario=scenario).to_dict()
+        except WrongSign as exc:
+            progress.counts["failed"] += 1
+            progress.add_error(product.sku, f"refused: {exc.reason}")
+            continue
+        except ServiceError as exc:
+            progress.counts["failed"] += 1
+            progress.add_error(product.sku, exc.detail)
+            continue
+        except Exception as exc:  # a stored value that cannot be used: this product only
+            if is_outage(exc):
+                raise
+            progress.counts["failed"] += 1
+            progress.add_error(product.sku, failure_reason(exc))
+            continue
+        progress.counts["recommended"] += 1
+        records.append(
+            {
+                "product_id": product.id,
+                "fit_id": fit_id,
+                "objective": request.objective,
+                "request": {"job_id": job_id, **request.model_dump()},
+                "result": record,
+                "created_at": utcnow(),
+            }
+        )
+    return records
