@@ -71,9 +71,12 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
     fit = shown.fit
     note = None if shown.active else "Rejected fit, shown for diagnosis only."
     try:
-        fitted = fitted_units(fit, history)
+        # Weeks whose fitted units pass the largest double are left out of the line
+        # (the chart draws finite values only), not errors.
+        with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
+            fitted = fitted_units(fit, history)
         in_fit, start = fitted_periods(fit, history)
-    except (UnusableDataError, ValueError):
+    except (UnusableDataError, ValueError, ArithmeticError):
         fitted, in_fit, start = None, no_weeks, None
         note = (note + " " if note else "") + "The fit cannot be evaluated on the stored history."
     return FitTimeInputs(

@@ -64,17 +64,54 @@ _draw_lock = threading.RLock()
 ChartInputs = TypeVar("ChartInputs")
 
 
-def one_at_a_time(draw: Callable[[ChartInputs], Chart]) -> Callable[[ChartInputs], Chart]:
-    @functools.wraps(draw)
-    def serialised(data: ChartInputs) -> Chart:
-        with _draw_lock, warnings.catch_warnings():
-            # A name in a script the bundled font lacks is drawn with empty boxes; that is
-            # no reason to warn on every chart. (Drawing is serialised, so this filter
-            # only ever overlaps threads that are not drawing.)
-            warnings.filterwarnings("ignore", r"Glyph \d+ .*missing from font", UserWarning)
-            return draw(data)
+UNDRAWABLE = (
+    "The numbers of this product are too large or too small to draw (beyond what a chart's "
+    "axis can hold); the summary below still gives them."
+)
+# What drawing raises on numbers near the limits of double precision: an axis whose
+# limits or margins overflow, a transform that divides by zero.
+_DRAWING_FAILURES = (
+    ValueError,
+    OverflowError,
+    FloatingPointError,
+    ZeroDivisionError,
+    RuntimeWarning,
+)
 
-    return serialised
+
+def one_at_a_time(
+    kind: str, text: Callable[[ChartInputs], tuple[str, tuple[str, ...]]]
+) -> Callable[[Callable[[ChartInputs], Chart]], Callable[[ChartInputs], Chart]]:
+    """Draw one chart at a time; a chart whose numbers cannot be drawn becomes a chart
+    that says so, with the same title and summary (a chart is always drawn)."""
+
+    def decorate(draw: Callable[[ChartInputs], Chart]) -> Callable[[ChartInputs], Chart]:
+        @functools.wraps(draw)
+        def serialised(data: ChartInputs) -> Chart:
+            with _draw_lock:
+                try:
+                    with warnings.catch_warnings():
+                        # A name in a script the bundled font lacks is drawn with empty
+                        # boxes; that is no reason to warn on every chart. (Drawing is
+                        # serialised, so these filters only ever overlap threads that are
+                        # not drawing.) Overflow on the way is a failure to draw.
+                        warnings.filterwarnings(
+                            "ignore", r"Glyph \d+ .*missing from font", UserWarning
+                        )
+                        warnings.simplefilter("error", RuntimeWarning)
+                        return draw(data)
+                except _DRAWING_FAILURES:
+                    with warnings.catch_warnings():
+                        warnings.filterwarnings(
+                            "ignore", r"Glyph \d+ .*missing from font", UserWarning
+                        )
+                        warnings.simplefilter("ignore", RuntimeWarning)
+                        title, summary = text(data)
+                        return placeholder(kind, title, UNDRAWABLE, summary[1:])
+
+        return serialised
+
+    return decorate
 
 
 @dataclass(frozen=True)

@@ -48,7 +48,7 @@ def demand_text(data: DemandInputs) -> tuple[str, tuple[str, ...]]:
     return f"Demand for {p.sku} ({p.name}): units against price", _demand_summary(data)
 
 
-@one_at_a_time
+@one_at_a_time("demand", demand_text)
 def demand_chart(data: DemandInputs) -> Chart:
     title, summary = demand_text(data)
     p = data.product

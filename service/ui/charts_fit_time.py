@@ -36,7 +36,7 @@ def fit_time_text(data: FitTimeInputs) -> tuple[str, tuple[str, ...]]:
     return f"Actual and fitted units of {p.sku} ({p.name}) by week", _fit_time_summary(data)
 
 
-@one_at_a_time
+@one_at_a_time("fit-over-time", fit_time_text)
 def fit_time_chart(data: FitTimeInputs) -> Chart:
     title, summary = fit_time_text(data)
     if data.periods.size == 0:

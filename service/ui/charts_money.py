@@ -32,7 +32,7 @@ def money_text(data: MoneyInputs) -> tuple[str, tuple[str, ...]]:
     return f"Revenue and profit of {p.sku} ({p.name}) against price", _money_summary(data)
 
 
-@one_at_a_time
+@one_at_a_time("money", money_text)
 def money_chart(data: MoneyInputs) -> Chart:
     title, summary = money_text(data)
     p = data.product
