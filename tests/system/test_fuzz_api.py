@@ -1,9 +1,11 @@
 """Property-based fuzzing of every operation in the OpenAPI document (schemathesis).
 
 For generated requests, valid and invalid: no 5xx, every response matches its documented
-schema and status, and every error is problem+json. Examples per operation are bounded
-(MARGINAL_FUZZ_EXAMPLES, default 20) to keep CI short. Runs on SQLite: the storage
-behaviour itself is covered on both databases by the other API tests.
+schema and status, and every error is problem+json; and the same for stateful workflows
+that create resources and then use and delete them. Examples are bounded
+(MARGINAL_FUZZ_EXAMPLES per operation, default 20; MARGINAL_FUZZ_STATEFUL_EXAMPLES
+workflows, default 15) to keep CI short; `scripts/fuzz` runs 200 of each. Runs on SQLite:
+the storage behaviour itself is covered on both databases by the other API tests.
 """
 
 from __future__ import annotations
@@ -126,3 +128,57 @@ def test_every_operation(fuzz_target: tuple[FastAPI, str]) -> None:
             )
     assert operations >= 25
     assert not failures, "\n\n".join(failures)
+
+
+STATEFUL_EXAMPLES = int(os.environ.get("MARGINAL_FUZZ_STATEFUL_EXAMPLES", "15"))
+
+
+def test_workflows_over_created_resources(fuzz_target: tuple[FastAPI, str]) -> None:
+    """Stateful: sequences that create something (a product, a key, a job, a schedule) and
+    then read, fill, fit, price, chart, change and delete what was created, following the
+    links schemathesis infers from the document (a product's sku from PUT feeds every
+    `/v1/products/{sku}/...` operation). No step answers 5xx, every answer matches the
+    document and every refusal is problem+json."""
+    app, key = fuzz_target
+    api = schemathesis.openapi.from_asgi("/openapi.json", app, config=CONFIG)
+    machine = api.as_state_machine()
+    links = [name for name in dir(machine) if name.startswith("PUT_v1_products_sku___201")]
+    # The links this test is for: a created product is read, filled, fitted, priced,
+    # charted and deleted.
+    for target in (
+        "GET_v1_products_sku_",
+        "POST_v1_products_sku_observations",
+        "POST_v1_products_sku_fits",
+        "POST_v1_products_sku_optimal_price",
+        "GET_v1_products_sku_charts_kind_svg",
+        "DELETE_v1_products_sku_",
+    ):
+        assert any(name.endswith(target) for name in links), (target, links)
+
+    class Workflow(machine):  # type: ignore[valid-type,misc]
+        def get_call_kwargs(self, case: schemathesis.Case) -> dict[str, object]:
+            return {"headers": {"Authorization": f"Bearer {key}"}}
+
+        def validate_response(
+            self,
+            response: schemathesis.Response,
+            case: schemathesis.Case,
+            additional_checks: object = None,
+            **kwargs: object,
+        ) -> None:
+            assert response.status_code < 500, (case.method, case.path, response.text[:500])
+            case.validate_response(
+                response,
+                additional_checks=[problem_json_errors],
+                excluded_checks=[positive_data_acceptance],
+            )
+
+    Workflow.run(
+        settings=settings(
+            max_examples=STATEFUL_EXAMPLES,
+            stateful_step_count=8,
+            deadline=None,
+            database=None,
+            suppress_health_check=list(HealthCheck),
+        )
+    )
