@@ -1,24 +1,22 @@
 """Least squares for a stack of products that share a design layout.
 
-Every product in a stack has the same number of observations ``n`` and of
-columns ``k`` (column 0 is the intercept). The regressors are centred, and the
-centred cross-product is scaled to unit diagonal before solving, which makes it a
-correlation matrix: Longley's design condition number drops from 5e9 to about
-1e2 (1.2e4 for the cross-product), so normal equations followed by one step of
-iterative refinement are accurate enough for fits that only predict (hold-out scores).
-``method="qr"`` (every reported fit) solves the same centred, scaled system by
-Householder QR and then refines the solution against the original design with
-double-double residuals (:mod:`models.refine`), which reaches the NIST StRD certified
-digits. Neither decides a rank: members a solver cannot settle are flagged for the
-single-product path, which decides by pivoted QR (:mod:`models.rank`).
+Every product in a stack has the same number of observations ``n`` and of columns ``k``
+(column 0 is the intercept). The regressors are centred, and the centred cross-product is
+scaled to unit diagonal before solving, which makes it a correlation matrix: Longley's
+design condition number drops from 5e9 to about 1e2 (1.2e4 for the cross-product), so
+normal equations followed by one step of iterative refinement are accurate enough for fits
+that only predict (hold-out scores). ``method="qr"`` (every reported fit) solves the same
+system by Householder QR and, where rounding can cost digits, refines the solution against
+the original design with double-double residuals (:mod:`models.refine`), which reaches the
+NIST StRD certified digits. Neither decides a rank: members a solver cannot settle are
+flagged for the single-product path, which decides by pivoted QR (:mod:`models.rank`).
 
-Classical standard errors are computed in the centred coordinates, where the
-cross-product matrix is block diagonal, and mapped back to the original
-coefficients with the exact linear transformation; robust ones are the
-cross-products of each period's influence on the original coefficients. Residual
-and design diagnostics are computed for the whole stack on first access.
-Internally the centred regressors are held one row per column, (b, k - 1, n), so
-that element-wise work runs along whole periods.
+Classical standard errors are computed in the centred coordinates, where the cross-product
+matrix is block diagonal, and mapped back to the original coefficients with the exact
+linear transformation; robust ones are the cross-products of each period's influence on
+the original coefficients. Residual and design diagnostics are computed for the whole stack
+on first access. Internally the centred regressors are held one row per column,
+(b, k - 1, n), so that element-wise work runs along whole periods.
 """
 
 from __future__ import annotations
@@ -42,6 +40,7 @@ _EPS: Final = float(np.finfo(np.float64).eps)
 NORMAL_GRAM_LIMIT: Final = 1e8
 """Largest diagonal of the inverse unit-diagonal cross-product the normal equations are
 trusted with; beyond it the product takes the QR path."""
+REFINE_CONDITION, REFINE_OFFSET = 1e3, 1e3  # when to refine a QR solution: see _solve
 
 
 def t_two_sided_p(tvalues: FloatArray, df: int) -> FloatArray:
@@ -268,17 +267,25 @@ def _solve(design: FloatArray, response: FloatArray, method: str) -> _Solution:
         gram_inv = np.matmul(r_inv, r_inv.transpose(0, 2, 1))
         cross_inv = gram_inv / scale[:, :, None] / scale[:, None, :]
         slopes = _mv(r_inv, np.einsum("bnj,bn->bj", q_c, yc)) / scale
-        start = np.empty((b, k))
-        start[:, 1:] = slopes
-        start[:, 0] = y_mean - np.einsum("bj,bj->b", means, slopes)
-        # X = [1 | M] = Q R with Q = [1/sqrt(n) | q_c], R = [[sqrt(n), sqrt(n) m'], [0, R_c]].
-        root_n = np.sqrt(n)
-        q = np.concatenate([np.full((b, n, 1), 1.0 / root_n), q_c], axis=2)
-        r = np.zeros((b, k, k))
-        r[:, 0, 0] = root_n
-        r[:, 0, 1:] = root_n * means
-        r[:, 1:, 1:] = r_unit * scale[:, None, :]
-        params, resid = refine(columns, response, start, q, r)
+        params = np.empty((b, k))
+        params[:, 1:] = slopes
+        params[:, 0] = y_mean - np.einsum("bj,bj->b", means, slopes)
+        resid = yc - _vm(slopes, centred)
+        # Refined where rounding can cost digits: an ill-conditioned factor, or a mean over
+        # REFINE_OFFSET sd (the intercept cancels); else the QR is good to ~cond * eps.
+        offset = (np.abs(means) > REFINE_OFFSET * scale / np.sqrt(n)).any(axis=1)
+        conditioned = np.linalg.norm(r_unit, axis=(1, 2)) * np.linalg.norm(r_inv, axis=(1, 2))
+        needs = ~(conditioned < REFINE_CONDITION) | offset
+        needs &= ~flat
+        if needs.any():
+            at = np.flatnonzero(needs)
+            root_n = np.sqrt(n)  # X = [1|M] = QR, Q = [1/√n | q_c], R = [[√n, √n m'], [0, R_c]]
+            q = np.concatenate([np.full((at.size, n, 1), 1.0 / root_n), q_c[at]], axis=2)
+            r = np.zeros((at.size, k, k))
+            r[:, 0, 0] = root_n
+            r[:, 0, 1:] = root_n * means[at]
+            r[:, 1:, 1:] = r_unit[at] * scale[at][:, None, :]
+            params[at], resid[at] = refine(columns[at], response[at], params[at], q, r)
     else:
         raise ValueError(f"unknown method {method!r}")
     flagged = bad | unsettled | ~np.isfinite(params).all(axis=1)
