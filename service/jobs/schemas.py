@@ -8,6 +8,7 @@ from typing import Annotated, Any, Literal
 from pydantic import (
     BaseModel,
     Field,
+    StrictBool,
     StringConstraints,
 )
 
@@ -40,7 +41,7 @@ class JobIn(Strict):
     scope: JobScope = Field(
         default="all", description='"all", {"family": "..."} or {"skus": ["...", ...]}'
     )
-    force: bool = Field(
+    force: StrictBool = Field(
         default=False,
         description="refit: also products whose history has not changed since their latest fit",
     )
@@ -95,7 +96,7 @@ class ScheduleIn(Strict):
     )
     timezone: Annotated[str, StringConstraints(min_length=1, max_length=64)] = "UTC"
     job: JobIn
-    enabled: bool = True
+    enabled: StrictBool = True
 
 
 class ScheduleOut(BaseModel):

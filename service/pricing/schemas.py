@@ -8,6 +8,7 @@ from typing import Annotated, Any, Literal
 from pydantic import (
     BaseModel,
     Field,
+    StrictBool,
     StringConstraints,
     model_validator,
 )
@@ -40,7 +41,7 @@ class ConstraintsIn(Strict):
         default=None, description="Stock that can be sold in the period"
     )
     min_units: Money | None = None
-    allow_extrapolation: bool = Field(
+    allow_extrapolation: StrictBool = Field(
         default=False,
         description="Allow prices beyond the observed range widened by 10% (always warned)",
     )
@@ -84,7 +85,7 @@ class OptimalPriceRequest(Strict):
     curve_points: Annotated[int, Field(strict=True, ge=0, le=200)] = Field(
         default=0, description="0 for no curve, else 50 to 200 points for plotting"
     )
-    force: bool = Field(
+    force: StrictBool = Field(
         default=False, description="Optimise even when the own-price effect has the wrong sign"
     )
 
@@ -189,7 +190,7 @@ class FamilyPriceRequest(Strict):
     )
     uncertainty_draws: Annotated[int, Field(strict=True, ge=0, le=1000)] = 0
     seed: Annotated[int, Field(strict=True, ge=0)] = 0
-    force: bool = False
+    force: StrictBool = False
 
 
 class FamilyTotalFigures(BaseModel):

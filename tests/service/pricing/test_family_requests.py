@@ -114,3 +114,19 @@ def test_a_family_of_mixed_currencies_is_refused_naming_each_product(
     patched = client.patch("/v1/products/TEA-F3", json={"currency": "EUR"}, headers=headers)
     assert patched.status_code == 200, patched.text
     assert _family(client, headers, {}).status_code == 200
+
+
+@pytest.mark.parametrize("flag", [0, 1, "yes"])
+def test_pricing_switches_are_true_or_false_only(
+    client: TestClient, headers: dict[str, str], db: Database, flag: object
+) -> None:
+    # Found by scripts/fuzz (on jobs): a number or text was taken for a boolean.
+    _fitted(client, headers, "TEA-F1")
+    for path, body in (
+        ("/v1/products/TEA-F1/optimal-price", {"force": flag}),
+        ("/v1/products/TEA-F1/optimal-price", {"constraints": {"allow_extrapolation": flag}}),
+        ("/v1/families/green/optimal-prices", {"force": flag}),
+    ):
+        answer = client.post(path, json=body, headers=headers)
+        assert answer.status_code == 422, (path, body, answer.text)
+    assert row_count(db.settings, "recommendations") == 0
