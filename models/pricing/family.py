@@ -154,9 +154,7 @@ def optimal_family_prices(
                     uncertainty=u,
                     warnings=r.warnings
                     + (
-                        (notes.draws_wrong_sign(u.n_wrong_sign / u.draws),)
-                        if u.n_wrong_sign
-                        else ()
+                        (notes.draws_wrong_sign(u.n_wrong_sign, u.draws),) if u.n_wrong_sign else ()
                     ),
                 )
                 for r, u in zip(products, figures.products, strict=True)

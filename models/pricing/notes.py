@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from typing import Final
 
@@ -102,11 +103,27 @@ def no_demand(price: float) -> FitWarning:
     )
 
 
-def draws_wrong_sign(share: float) -> FitWarning:
+def share_text(part: int, whole: int) -> str:
+    """``part`` of ``whole`` as a percentage that keeps a significant digit (0.5%, not 0%)."""
+    share = part / whole if whole else 0.0
+    if share == 0.0 or share >= 0.1:
+        return f"{share:.0%}"
+    digits = max(1, -math.floor(math.log10(share * 100)))
+    return f"{share:.{digits}%}"
+
+
+def draws_wrong_sign(wrong: int, draws: int) -> FitWarning:
+    """Some coefficient draws have a wrong-signed own-price effect.
+
+    >>> draws_wrong_sign(1, 200).message[:49]
+    '1 of 200 coefficient draws (0.5%) has a wrong-sig'
+    """
+    verb = "has" if wrong == 1 else "have"
     return FitWarning(
         DRAWS_WRONG_SIGN,
-        f"{share:.0%} of the coefficient draws have a non-negative own-price effect; the "
-        "price interval includes their bound-driven optima.",
+        f"{wrong} of {draws} coefficient draws ({share_text(wrong, draws)}) {verb} a "
+        "wrong-signed (non-negative) own-price effect; the price interval includes their "
+        "bound-driven optima.",
     )
 
 

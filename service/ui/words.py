@@ -45,7 +45,7 @@ _PRICING_WARNINGS = {
     "cost_above_feasible_prices": ("cost above allowed prices", "caution"),
     "own_price_wrong_sign_forced": ("priced despite wrong sign", "caution"),
     "no_expected_demand": ("no demand at this price", "caution"),
-    "draws_wrong_sign": ("some draws slope upward", "note"),
+    "draws_wrong_sign": ("some draws have the wrong sign", "note"),
     "uncertainty_unavailable": ("no uncertainty figures", "note"),
     "current_figures_unavailable": ("no current figures", "note"),
 }

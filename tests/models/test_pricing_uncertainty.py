@@ -165,3 +165,14 @@ def test_family_draws_match_optimising_each_drawn_family(family) -> None:
     assert result.total.profit_interval is not None
     assert result.total.prob_better_than_current is not None
     json.dumps(result.to_dict(), allow_nan=False)
+
+
+def test_a_small_share_of_wrong_signed_draws_keeps_a_digit() -> None:
+    # "1 of 200 draws (0.5%)", never "0%" for a share that is not zero (issue wording).
+    from models.pricing.notes import draws_wrong_sign, share_text
+
+    assert share_text(1, 200) == "0.5%" and share_text(1, 2000) == "0.05%"
+    assert share_text(0, 200) == "0%" and share_text(30, 200) == "15%"
+    one = draws_wrong_sign(1, 200).message
+    assert one.startswith("1 of 200 coefficient draws (0.5%) has ")
+    assert draws_wrong_sign(5, 200).message.startswith("5 of 200 coefficient draws (2.5%) have ")
