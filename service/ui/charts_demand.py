@@ -30,6 +30,7 @@ from service.ui.charts import (
     style_axes,
     to_svg,
 )
+from service.ui.words import plural
 
 _POINT_STYLE: dict[str, dict[str, Any]] = {
     "regular": {"marker": "o", "c": SLATE, "s": 18},
@@ -191,7 +192,7 @@ def _demand_summary(data: DemandInputs) -> tuple[str, ...]:
         units = np.concatenate([g.units for g in data.groups])
         kinds = ", ".join(f"{g.price.size} {g.label}" for g in data.groups)
         lines.append(
-            f"{weeks} past weeks ({kinds}); prices {money(prices.min())} to "
+            f"{plural(weeks, 'past week')} ({kinds}); prices {money(prices.min())} to "
             f"{money(prices.max(), p.currency)}, "
             f"units {count(units.min())} to {count(units.max())}."
         )

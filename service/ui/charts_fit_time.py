@@ -24,6 +24,7 @@ from service.ui.charts import (
     style_axes,
     to_svg,
 )
+from service.ui.words import plural
 
 
 def _days(periods: np.ndarray) -> np.ndarray:
@@ -149,9 +150,11 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
         return tuple(lines)
     ok = np.isfinite(data.actual)
     lines.append(
-        f"{data.periods.size} weeks from {data.periods[0]} to {data.periods[-1]}; actual units "
+        f"{plural(data.periods.size, 'week')} from {data.periods[0]} to {data.periods[-1]}; "
+        "actual units "
         f"{count(float(data.actual[ok].min()))} to {count(float(data.actual[ok].max()))}, "
-        f"{int(data.promotion.sum())} promotion weeks, {int(data.stockout.sum())} out of stock."
+        f"{plural(int(data.promotion.sum()), 'promotion week')}, "
+        f"{int(data.stockout.sum())} out of stock."
     )
     if data.fitted is not None:
         used = np.isfinite(data.fitted) & data.in_fit & ok
@@ -160,7 +163,7 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
             worst = int(np.argmax(np.abs(residual)))
             worst_week = data.periods[used][worst]
             lines.append(
-                f"{int(used.sum())} weeks entered the fit; residuals range from "
+                f"{plural(int(used.sum()), 'week')} entered the fit; residuals range from "
                 f"{count(float(residual.min()))} to {count(float(residual.max()))} units "
                 f"(largest miss {count(float(residual[worst]))} in the week of {worst_week})."
             )
@@ -169,7 +172,8 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
     if data.holdout_start is not None:
         wape = f"{data.holdout_wape:.1%}" if data.holdout_wape is not None else "not scored"
         lines.append(
-            f"Hold-out: the last {data.holdout_weeks} fitted weeks from {data.holdout_start}; "
+            f"Hold-out: the last {plural(data.holdout_weeks, 'fitted week')} from "
+            f"{data.holdout_start}; "
             f"weighted absolute percentage error (WAPE) {wape}."
         )
     if data.note:

@@ -145,3 +145,12 @@ def test_histories_at_the_ends_of_the_period_range_chart(
     assert str(first.year) in drawn["fit-over-time"]
     _view_charts(db, headers, "TEA-DATES")
     _report_has_every_page(db, tmp_path)
+
+
+def test_counts_in_chart_texts_take_the_right_number() -> None:
+    # Issue #15: "1 week", "8 weeks" — never "1 weeks".
+    from service.ui.words import plural
+
+    assert plural(1, "week") == "1 week" and plural(8, "week") == "8 weeks"
+    assert plural(0, "promotion week") == "0 promotion weeks"
+    assert plural(1, "fitted week") == "1 fitted week"
