@@ -210,7 +210,10 @@ class PredictionOut(BaseModel):
     revenue: float | None
     profit: float | None
     unit_cost: float | None
-    point: dict[str, float | None]
+    point: dict[str, float | None] = Field(
+        description="Every variable's value the prediction used: those sent, the rest at "
+        "the latest fitted period's values"
+    )
     warnings: list[WarningOut]
 
 

@@ -160,7 +160,10 @@ class RecommendationOut(BaseModel):
     uncertainty: UncertaintyOut | None
     warnings: list[WarningOut]
     curve: list[CurvePointOut] | None = None
-    scenario: dict[str, Any]
+    scenario: dict[str, Any] = Field(
+        description="The other variables' values the demand was evaluated at: those sent "
+        "in the request's scenario, the rest at the latest fitted period's values"
+    )
     optimum: Optimum = Field(description=OPTIMUM_HELP)
     search: Search = Field(description=SEARCH_HELP)
     search_steps: int = Field(
