@@ -12,12 +12,12 @@ from sqlalchemy.orm import Session
 from models import DemandFit, ModelSpec, fit_demand, fit_many, pool_family
 from service.catalogue import products
 from service.core import metrics
-from service.core.errors import NoActiveFit, NotFound, library_errors
+from service.core.errors import ErrorItem, NoActiveFit, NotFound, library_errors
 from service.core.settings import Settings
 from service.core.tables import FitRow, ProductRow
 from service.estimation import fit_store, histories
 from service.estimation.fit_cache import fit_cache
-from service.estimation.gates import ACTIVE
+from service.estimation.gates import ACTIVE, REJECTED
 
 
 def active_row(session: Session, *, product_id: int) -> FitRow | None:
@@ -29,7 +29,7 @@ def active_row(session: Session, *, product_id: int) -> FitRow | None:
 def active_or_raise(session: Session, *, product: ProductRow) -> FitRow:
     row = active_row(session, product_id=product.id)
     if row is None:
-        raise _no_active_fit(product)
+        raise no_active_fit(session, product_id=product.id, sku=product.sku)
     return row
 
 
@@ -79,15 +79,54 @@ def product_with_active_fit(session: Session, sku: str) -> tuple[PricingTerms, i
         currency=found.currency,
     )
     if found.fit_id is None:
-        raise _no_active_fit(product)
+        raise no_active_fit(session, product_id=product.id, sku=product.sku)
     return product, found.fit_id, fit_cache.get(session, found.fit_id, found.fit_created_at)
 
 
-def _no_active_fit(product: ProductRow | PricingTerms) -> NoActiveFit:
+def no_active_fit(session: Session, *, product_id: int, sku: str) -> NoActiveFit:
+    """Why a product has no fit that pricing may use, and what may help: never fitted,
+    or its latest fit was rejected (by which quality gates, and why)."""
+    latest = session.execute(
+        select(FitRow.id, FitRow.version, FitRow.status, FitRow.gates)
+        .where(FitRow.product_id == product_id)
+        .order_by(FitRow.version.desc())
+        .limit(1)
+    ).first()
+    fit_path = f"/v1/products/{sku}/fits"
+    if latest is None or latest.status != REJECTED:
+        return NoActiveFit(f"product {sku!r} has no active fit; fit one with POST {fit_path}")
+    failed = rejected_by(latest.gates)
+    names = ", ".join(name for name, _ in failed) or "a quality gate"
+    remedies = [REMEDIES[name].format(sku=sku) for name, _ in failed if name in REMEDIES]
+    remedies.append(f"fit again with a different spec (POST {fit_path} with a spec)")
     return NoActiveFit(
-        f"product {product.sku!r} has no active fit; fit one with POST "
-        f"/v1/products/{product.sku}/fits"
+        f"product {sku!r} has no active fit: its latest fit (version {latest.version}) was "
+        f"rejected by the quality gate{'s' if len(failed) > 1 else ''} {names}. "
+        f"What may help: {'; '.join(remedies)}. The fit and its gates: GET "
+        f"{fit_path}/{latest.id}",
+        errors=[ErrorItem(message=f"{name}: {detail}") for name, detail in failed],
     )
+
+
+def rejected_by(gates: dict[str, Any] | None) -> list[tuple[str, str]]:
+    """The failed gates of a stored gate record, as (name, detail) pairs."""
+    checks = (gates or {}).get("checks") or []
+    return [
+        (str(c.get("name")), str(c.get("detail")))
+        for c in checks
+        if isinstance(c, dict) and not c.get("passed", True)
+    ]
+
+
+# What a user can do about each gate a fit failed (said in the 404 of pricing and answers).
+REMEDIES = {
+    "expected_sign": "charge a wider spread of prices for a while so the price effect shows "
+    "(POST /v1/products/{sku}/price-tests plans one), or add the covariates that move with "
+    "price, such as promotions",
+    "price_variation": "charge a wider spread of prices for a while (POST "
+    "/v1/products/{sku}/price-tests plans one)",
+    "enough_observations": "send more observations (POST /v1/products/{sku}/observations)",
+}
 
 
 def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
@@ -98,7 +137,7 @@ def active_fit(session: Session, product: ProductRow) -> tuple[int, DemandFit]:
         )
     ).first()
     if found is None:
-        raise _no_active_fit(product)
+        raise no_active_fit(session, product_id=product.id, sku=product.sku)
     return found.id, fit_cache.get(session, found.id, found.created_at)
 
 
