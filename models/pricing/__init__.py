@@ -12,7 +12,7 @@ from models.errors import (
     UnboundedObjectiveError,
     WrongSignError,
 )
-from models.pricing.constraints import PriceConstraints
+from models.pricing.constraints import NamedLimit, PriceConstraints
 from models.pricing.curve import DemandCurve
 from models.pricing.family import optimal_family_prices
 from models.pricing.result import (
@@ -34,6 +34,7 @@ __all__ = [
     "InfeasibleConstraintsError",
     "InvalidConstraintsError",
     "MissingUnitCostError",
+    "NamedLimit",
     "PriceConstraints",
     "PricePoint",
     "PriceRecommendation",

@@ -28,6 +28,25 @@ _GRID_DECIMALS: Final = 10
 
 
 @dataclass(frozen=True)
+class NamedLimit:
+    """A price floor and/or ceiling that carries a name of its caller's choosing.
+
+    The service turns a jurisdiction's pricing rules into such limits; the name comes
+    back in ``binding_constraints`` (and in the conflicts of an empty interval) exactly
+    as given, so the caller can tell its own limits apart from the business constraints.
+
+    Examples
+    --------
+    >>> NamedLimit("rule:hold", low=4.5, high=4.5).high
+    4.5
+    """
+
+    name: str
+    low: float | None = None
+    high: float | None = None
+
+
+@dataclass(frozen=True)
 class PriceConstraints:
     """Rules a recommended price must follow (every field optional).
 
@@ -51,6 +70,8 @@ class PriceConstraints:
     allow_extrapolation : bool
         Lift the default guard that keeps prices within the observed price range
         widened by 10% on each side.
+    named_limits : tuple of NamedLimit
+        Further floors and ceilings under names the caller chooses.
 
     Raises
     ------
@@ -72,8 +93,10 @@ class PriceConstraints:
     max_units: float | None = None
     min_units: float | None = None
     allow_extrapolation: bool = False
+    named_limits: tuple[NamedLimit, ...] = ()
 
     def __post_init__(self) -> None:
+        object.__setattr__(self, "named_limits", tuple(self.named_limits or ()))
         endings: Any = self.price_endings
         if endings is None:
             endings = ()
@@ -104,6 +127,13 @@ class PriceConstraints:
         values: dict[str, Any] = {}
         for name in known & set(data):
             value = data[name]
+            if name == "named_limits":
+                limits = _named_limits(value)
+                if limits is None:
+                    problems.append((name, "must be a list of {name, low, high} objects"))
+                else:
+                    values[name] = limits
+                continue
             if name == "allow_extrapolation":
                 if not isinstance(value, bool):
                     problems.append((name, "must be true or false"))
@@ -126,7 +156,25 @@ class PriceConstraints:
         """JSON-ready mapping that :meth:`from_dict` accepts."""
         out = {f.name: getattr(self, f.name) for f in fields(self)}
         out["price_endings"] = list(self.price_endings)
+        out["named_limits"] = [
+            {"name": n.name, "low": n.low, "high": n.high} for n in self.named_limits
+        ]
         return out
+
+
+def _named_limits(value: Any) -> tuple[NamedLimit, ...] | None:
+    """Named limits from their JSON form, or None when the form is wrong."""
+    if not isinstance(value, (list, tuple)):
+        return None
+    out = []
+    for item in value:
+        if not isinstance(item, Mapping) or set(item) - {"name", "low", "high"}:
+            return None
+        name, low, high = item.get("name"), item.get("low"), item.get("high")
+        if not isinstance(name, str) or not all(v is None or _is_number(v) for v in (low, high)):
+            return None
+        out.append(NamedLimit(name, low, high))
+    return tuple(out)
 
 
 def _is_number(value: Any) -> bool:
@@ -165,6 +213,13 @@ def _problems(c: PriceConstraints) -> list[tuple[str, str]]:
         problems.append(("price_endings", "give either price_step or price_endings, not both"))
     if not isinstance(c.allow_extrapolation, bool):
         problems.append(("allow_extrapolation", "must be true or false"))
+    for limit in c.named_limits:
+        if not isinstance(limit, NamedLimit) or not limit.name:
+            problems.append(("named_limits", "each must be a NamedLimit with a name"))
+            continue
+        for value in (limit.low, limit.high):
+            if value is not None and (not _is_number(value) or not math.isfinite(value)):
+                problems.append(("named_limits", f"{limit.name}: limits must be finite numbers"))
     return problems
 
 
@@ -213,6 +268,11 @@ def price_limits(
         upper.append(Bound("max_change_pct", current_price * (1.0 + share)))
     if c.min_margin_pct is not None and unit_cost is not None:
         lower.append(Bound("min_margin_pct", unit_cost / (1.0 - c.min_margin_pct / 100.0)))
+    for limit in c.named_limits:
+        if limit.low is not None:
+            lower.append(Bound(limit.name, float(limit.low)))
+        if limit.high is not None:
+            upper.append(Bound(limit.name, float(limit.high)))
     if not c.allow_extrapolation:
         low, high = price_range
         lower.append(Bound(OBSERVED_RANGE, low * (1.0 - EXTRAPOLATION_MARGIN)))

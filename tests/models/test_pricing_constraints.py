@@ -23,6 +23,7 @@ from models import (
     InfeasibleConstraintsError,
     InvalidConstraintsError,
     ModelSpec,
+    NamedLimit,
     PriceConstraints,
     PricingInputError,
     fit_demand,
@@ -66,6 +67,11 @@ def allowed_mask(
             ok &= p >= c.min_price * (1 - eps)
         if c.max_price is not None:
             ok &= p <= c.max_price * (1 + eps)
+        for limit in c.named_limits:
+            if limit.low is not None:
+                ok &= p >= limit.low * (1 - eps)
+            if limit.high is not None:
+                ok &= p <= limit.high * (1 + eps)
         if c.max_change_pct is not None:
             ok &= np.abs(p / current - 1.0) <= c.max_change_pct / 100 + eps
         if c.min_margin_pct is not None:
@@ -143,6 +149,12 @@ CASES = {
         min_margin_pct=45.0, max_change_pct=8.0, price_endings=(0.29, 0.79)
     ),
     "no guard": PriceConstraints(allow_extrapolation=True, min_price=3.0, max_price=30.0),
+    "named limits": PriceConstraints(
+        named_limits=(NamedLimit("floor", low=9.1), NamedLimit("ceiling", high=9.5))
+    ),
+    "named limits and endings": PriceConstraints(
+        named_limits=(NamedLimit("band", low=8.0, high=11.0),), price_endings=(0.49, 0.99)
+    ),
 }
 
 
@@ -187,6 +199,43 @@ def test_binding_constraints_are_named() -> None:
     )
     assert on_grid.binding_constraints == ("max_change_pct", "price_step")
     assert on_grid.search == "allowed_prices"
+
+
+def test_named_limits_come_back_under_their_names() -> None:
+    data = case("poisson")  # its profit optimum lies inside the observed prices
+    free = optimal_price(data.fit, unit_cost=data.cost, current_price=data.current)
+    price = free.recommended.price
+    capped = optimal_price(
+        data.fit,
+        unit_cost=data.cost,
+        current_price=data.current,
+        constraints=PriceConstraints(named_limits=(NamedLimit("rule:cap", high=0.95 * price),)),
+    )
+    assert capped.binding_constraints == ("rule:cap",)
+    assert capped.recommended.price == pytest.approx(0.95 * price, rel=1e-12)
+    held = optimal_price(
+        data.fit,
+        unit_cost=data.cost,
+        current_price=data.current,
+        constraints=PriceConstraints(
+            named_limits=(NamedLimit("rule:hold", low=data.current, high=data.current),)
+        ),
+    )
+    assert held.recommended.price == pytest.approx(data.current, rel=1e-12)
+    assert held.binding_constraints == ("rule:hold",)
+    with pytest.raises(InfeasibleConstraintsError) as conflict:
+        optimal_price(
+            data.fit,
+            unit_cost=data.cost,
+            constraints=PriceConstraints(
+                max_price=0.5 * price, named_limits=(NamedLimit("rule:floor", low=price),)
+            ),
+        )
+    assert {"rule:floor", "max_price"} <= set(conflict.value.constraints)
+    with pytest.raises(InvalidConstraintsError):
+        PriceConstraints(named_limits=(NamedLimit("rule:bad", low=math.inf),))
+    constraints = PriceConstraints(named_limits=(NamedLimit("band", low=1.0, high=2.0),))
+    assert PriceConstraints.from_dict(constraints.to_dict()) == constraints
 
 
 def test_stock_cap_binds_at_the_price_that_sells_the_stock() -> None:
