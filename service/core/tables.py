@@ -8,6 +8,7 @@ from typing import Any
 from sqlalchemy import (
     JSON,
     Boolean,
+    CheckConstraint,
     Date,
     DateTime,
     Float,
@@ -137,8 +138,22 @@ class FitRow(Base):
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
 
 
+RECOMMENDATION_STATES = ("proposed", "approved", "declined", "superseded")
+
+
 class RecommendationRow(Base):
+    """A stored recommendation and where it stands on the reviewed path: ``proposed``
+    until a person or an approval policy approves it (``approved``) or a person declines
+    it (``declined``), or a newer proposal for the product takes its place
+    (``superseded``). Only a proposed recommendation changes state."""
+
     __tablename__ = "recommendations"
+    __table_args__ = (
+        CheckConstraint(
+            "state IN ('proposed', 'approved', 'declined', 'superseded')", name="state"
+        ),
+        Index("ix_recommendations_product_state", "product_id", "state"),
+    )
 
     id: Mapped[int] = mapped_column(Integer, primary_key=True)
     product_id: Mapped[int] = mapped_column(
@@ -149,6 +164,69 @@ class RecommendationRow(Base):
     request: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
     result: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
     created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    state: Mapped[str] = mapped_column(String(16), default="proposed", server_default="proposed")
+    decided_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    decided_by_key_id: Mapped[str | None] = mapped_column(String(16))
+    policy_id: Mapped[int | None] = mapped_column(Integer)
+    approved_price: Mapped[float | None] = mapped_column(Float)
+    note: Mapped[str | None] = mapped_column(String(500))
+
+
+class PriceEntryRow(Base):
+    """The price record: one entry per live price, never updated. An entry is the
+    product's live price from ``effective_from`` until the next entry's start (a
+    correction is a new entry), so a product has at most one live price at any time.
+    Recommendation, fit and policy ids are kept as plain numbers: the record outlives them."""
+
+    __tablename__ = "price_entries"
+    __table_args__ = (UniqueConstraint("product_id", "effective_from"),)
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"))
+    price: Mapped[float] = mapped_column(Float)
+    effective_from: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True))
+    set_by_key_id: Mapped[str | None] = mapped_column(String(16))
+    policy_id: Mapped[int | None] = mapped_column(Integer)
+    recommendation_id: Mapped[int | None] = mapped_column(Integer)
+    fit_id: Mapped[int | None] = mapped_column(Integer)
+    note: Mapped[str | None] = mapped_column(String(500))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
+class ApprovalPolicyRow(Base):
+    """Limits within which stored recommendations are approved without a person:
+    a product, a family or the whole catalogue; ended, never deleted."""
+
+    __tablename__ = "approval_policies"
+    __table_args__ = (
+        CheckConstraint("applies_to IN ('product', 'family', 'catalogue')", name="applies_to"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(100))
+    applies_to: Mapped[str] = mapped_column(String(16))
+    target: Mapped[str | None] = mapped_column(String(64))
+    max_change_pct: Mapped[float] = mapped_column(Float)
+    min_margin_pct: Mapped[float | None] = mapped_column(Float)
+    created_by_key_id: Mapped[str | None] = mapped_column(String(16))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    ended_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    ended_by_key_id: Mapped[str | None] = mapped_column(String(16))
+
+
+class AuditEntryRow(Base):
+    """The audit log: who (a key, or None for a policy or the system) did what, when.
+    Append-only: nothing in the service updates or deletes an entry, and the database
+    refuses updates (and on PostgreSQL deletions) by trigger."""
+
+    __tablename__ = "audit_entries"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow, index=True)
+    actor_key_id: Mapped[str | None] = mapped_column(String(16), index=True)
+    action: Mapped[str] = mapped_column(String(64), index=True)
+    subject: Mapped[str] = mapped_column(String(200), index=True)
+    details: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
 
 
 class JobRow(Base):
