@@ -5,6 +5,9 @@ detail. The surface, by task:
 
 * data and specification: :class:`History`, :class:`ModelSpec`, :class:`Term`,
   :data:`UNIT_COST`;
+* borrowing strength: :func:`shrink_own_price` (own-price elasticities shrunk toward the
+  family and the catalogue, :class:`Shrinkage`, :class:`ShrunkElasticity`), :func:`shrunk_fit`
+  and the estimator behind them, :func:`normal_means` (:class:`NormalMeans`);
 * fitting: :func:`fit_demand`, :func:`fit_many`, :func:`pool_family` and the fit record
   (:class:`DemandFit`, :class:`Coefficient`, :class:`Quality`, :class:`Diagnostics`,
   :class:`DataWindow`, :class:`FitWarning`, :class:`FitFailure`,
@@ -47,6 +50,7 @@ from models.fit import fit_demand, fit_many
 from models.fitted import fitted_periods, fitted_units
 from models.guards import price_range_warning
 from models.history import History
+from models.normal_means import NormalMeans, normal_means
 from models.pooling import pool_family
 from models.predict import Prediction, predict
 from models.pricing import (
@@ -82,6 +86,7 @@ from models.scenario import (
     generate_catalogue,
     simulate_product,
 )
+from models.shrinkage import Shrinkage, ShrunkElasticity, shrink_own_price, shrunk_fit
 from models.spec import UNIT_COST, ModelSpec
 
 __all__ = [
@@ -107,6 +112,7 @@ __all__ = [
     "MissingUnitCostError",
     "ModelSpec",
     "NamedLimit",
+    "NormalMeans",
     "PooledElasticity",
     "Prediction",
     "PriceConstraints",
@@ -117,6 +123,8 @@ __all__ = [
     "Quality",
     "SIGNIFICANCE",
     "ScenarioProduct",
+    "Shrinkage",
+    "ShrunkElasticity",
     "SpecError",
     "Term",
     "TotalFigures",
@@ -133,10 +141,13 @@ __all__ = [
     "fitted_periods",
     "fitted_units",
     "generate_catalogue",
+    "normal_means",
     "optimal_family_prices",
     "optimal_price",
     "pool_family",
     "predict",
     "price_range_warning",
+    "shrink_own_price",
+    "shrunk_fit",
     "simulate_product",
 ]
