@@ -22,8 +22,8 @@ from sqlalchemy.orm import Session
 from service.core.errors import Forbidden, NotFound, Unauthenticated
 from service.core.tables import ApiKeyRow, as_utc, utcnow
 
-Scope = Literal["read", "write", "admin"]
-SCOPES: tuple[Scope, ...] = ("read", "write", "admin")
+Scope = Literal["read", "write", "admin", "approve"]
+SCOPES: tuple[Scope, ...] = ("read", "write", "admin", "approve")
 KEY_PREFIX = "mk"
 
 

@@ -18,7 +18,7 @@ from service.core.tables import (
     as_utc_or_none,
 )
 
-Scope = Literal["read", "write", "admin"]
+Scope = Literal["read", "write", "admin", "approve"]
 
 
 class ApiKeyIn(Strict):

@@ -148,3 +148,5 @@ def requires(scope: Scope) -> DependsParam:
 READ = requires("read")
 WRITE = requires("write")
 ADMIN = requires("admin")
+# Deciding: approving prices, activating fits a person chose.
+APPROVE = requires("approve")

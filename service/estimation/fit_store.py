@@ -22,9 +22,10 @@ from models import DemandFit, FitFailure, ModelSpec
 from service.core import json_text
 from service.core.settings import Settings
 from service.core.tables import FitRow, ProductRow, utcnow
+from service.estimation.fit_review import AWAITING_REVIEW, HOLDOUT_GATE, holdout_undecided
 from service.estimation.gates import ACTIVE, REJECTED, SUPERSEDED, GateResult, quality_gates
 
-Outcome = Literal["activated", "rejected", "failed"]
+Outcome = Literal["activated", "rejected", "awaiting_review", "failed"]
 
 
 @dataclass(frozen=True)
@@ -38,7 +39,8 @@ class FitTarget:
 @dataclass(frozen=True)
 class FitOutcome:
     """What became of one product's new fit: activated, rejected by the gates (with
-    their names), or failed before a record could be made (with the reason)."""
+    their names), awaiting a person's review (the gates did not decide), or failed
+    before a record could be made (with the reason)."""
 
     sku: str
     outcome: Outcome
@@ -54,15 +56,19 @@ def row_values(
     gates: list[GateResult],
     job_id: int | None = None,
     result_json: str | None = None,
+    undecided: Sequence[str] = (),
 ) -> dict[str, Any]:
     """The columns of a new fit record, JSON columns as text; active only if every gate
-    passed. ``result_json`` is the fit's :func:`encode_result` when the caller has it."""
+    passed and decided (``undecided`` names the gates that left it to a person).
+    ``result_json`` is the fit's :func:`encode_result` when the caller has it."""
     passed = all(g.passed for g in gates)
-    gates_record = {"passed": passed, "checks": [g.to_dict() for g in gates]}
+    gates_record: dict[str, Any] = {"passed": passed, "checks": [g.to_dict() for g in gates]}
+    if undecided:
+        gates_record["undecided"] = list(undecided)
     return {
         "product_id": product_id,
         "version": version,
-        "status": ACTIVE if passed else REJECTED,
+        "status": (AWAITING_REVIEW if undecided else ACTIVE) if passed else REJECTED,
         "form": fit.form,
         "spec": _spec_json(fit.spec),
         "result": result_json if result_json is not None else encode_result(fit),
@@ -177,9 +183,9 @@ def activate(
             .with_for_update()
         )
     active = {
-        r.product_id: (r.id, r.holdout_wape)
+        r.product_id: (r.id, r.holdout_wape, r.spec)
         for r in session.execute(
-            select(FitRow.product_id, FitRow.id, FitRow.holdout_wape).where(
+            select(FitRow.product_id, FitRow.id, FitRow.holdout_wape, FitRow.spec).where(
                 FitRow.product_id.in_(ids), FitRow.status == ACTIVE
             )
         )
@@ -203,7 +209,23 @@ def activate(
         previous = active.get(target.product_id)
         gates = quality_gates(result, previous[1] if previous else None, settings)
         version = (versions.get(target.product_id) or 0) + 1
-        if all(g.passed for g in gates):
+        held = holdout_undecided(
+            result.spec.to_dict(),
+            previous[2] if previous else None,
+            sku=target.sku,
+        )
+        undecided: list[str] = []
+        if held is not None:
+            gates = [held if g.name == HOLDOUT_GATE else g for g in gates]
+            undecided = [HOLDOUT_GATE]
+        if all(g.passed for g in gates) and undecided:
+            reason = (
+                "the hold-out gate did not decide (the spec identifies the price effect "
+                "differently from the active fit's): a person must review the fit and "
+                "activate it"
+            )
+            outcomes.append(FitOutcome(target.sku, AWAITING_REVIEW, version, reason))
+        elif all(g.passed for g in gates):
             outcomes.append(FitOutcome(target.sku, "activated", version))
             if previous:
                 superseded.append(previous[0])
@@ -219,6 +241,7 @@ def activate(
                 gates=gates,
                 job_id=job_id,
                 result_json=text,
+                undecided=undecided,
             )
         )
     if superseded:

@@ -4,15 +4,17 @@ from __future__ import annotations
 
 from typing import Annotated
 
-from fastapi import APIRouter, Path, Query, status
+from fastapi import APIRouter, Path, Query, Request, status
 
+from service.catalogue import products
 from service.catalogue.deps import ReadProduct, SkuPath
-from service.core.deps import READ, WRITE, ReadSession, SettingsDep, WriteSession
+from service.core.deps import APPROVE, READ, WRITE, ReadSession, SettingsDep, WriteSession
 from service.core.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import Page
-from service.estimation import answers, fits
+from service.estimation import answers, fit_review, fits
 from service.estimation.schemas import (
+    ActivateFitRequest,
     ElasticitiesOut,
     FitOut,
     FitRequest,
@@ -84,6 +86,38 @@ def get_fit(
     sku: SkuPath, fit_id: Annotated[int, Path(ge=1, le=MAX_ID)], session: ReadSession
 ) -> FitOut:
     return fit_out(fits.get_or_raise(session, sku=sku, fit_id=fit_id), sku)
+
+
+@router.post(
+    "/fits/{fit_id}/activate",
+    response_model=FitOut,
+    dependencies=[APPROVE],
+    operation_id="activate_fit",
+    summary="Make a fit version the active fit, by a person's decision",
+    responses=problems(404, 409, 422),
+)
+def activate_fit(
+    sku: SkuPath,
+    fit_id: Annotated[int, Path(ge=1, le=MAX_ID)],
+    request: Request,
+    session: WriteSession,
+    body: ActivateFitRequest | None = None,
+) -> FitOut:
+    """A key with the `approve` scope makes a stored fit version the product's active fit:
+    one the quality gates left to a person (`awaiting_review`), a `rejected` one (a
+    `reason` is then required), or an earlier, `superseded` one (a restore). The fit it
+    replaces becomes `superseded`; pricing uses the activated fit from then on. The
+    decision (who, when, why) is kept with the fit's gates and in the audit log. 409 if
+    the fit is already active."""
+    product = products.get_or_raise(session, sku=sku)
+    done = fit_review.activate_version(
+        session,
+        product=product,
+        fit_id=fit_id,
+        reason=body.reason if body else None,
+        key_id=getattr(request.state, "key_id", None),
+    )
+    return fit_out(done.fit, sku)
 
 
 @router.get(

@@ -16,6 +16,7 @@ from service.core.tables import (
     FitRow,
     as_utc,
 )
+from service.estimation.fit_review import review_step
 
 
 class FitRequest(Strict):
@@ -79,9 +80,24 @@ class GateOut(BaseModel):
     detail: str
 
 
+class DecisionOut(BaseModel):
+    """A person's decision to make this fit active (absent when the gates decided)."""
+
+    by_key_id: str | None
+    at: str
+    reason: str | None
+    status_before: str = Field(description="The fit's status before it was activated")
+
+
 class GatesOut(BaseModel):
     passed: bool
     checks: list[GateOut]
+    undecided: list[str] = Field(
+        default_factory=list,
+        description="Gates that left the decision to a person (the hold-out gate, when the "
+        "spec identifies the price effect differently from the active fit's)",
+    )
+    decision: DecisionOut | None = None
 
 
 class WindowOut(BaseModel):
@@ -116,7 +132,7 @@ class PooledOut(BaseModel):
     n_products: int
 
 
-FitStatus = Literal["active", "superseded", "rejected"]
+FitStatus = Literal["active", "superseded", "rejected", "awaiting_review"]
 
 
 class FitSummary(BaseModel):
@@ -152,6 +168,19 @@ class FitOut(FitSummary):
         description="Rolling-origin hold-out WAPE of each candidate form (form `auto`)"
     )
     pooled: PooledOut | None
+    review: str | None = Field(
+        default=None,
+        description="What a person must do when the quality gates did not decide "
+        "(status `awaiting_review`); null otherwise",
+    )
+
+
+class ActivateFitRequest(Strict):
+    reason: Annotated[str, Field(min_length=1, max_length=500)] | None = Field(
+        default=None,
+        description="Why this fit should be used; required to activate a rejected fit. "
+        "Written to the audit log.",
+    )
 
 
 class ElasticityOut(BaseModel):
@@ -249,4 +278,5 @@ def fit_out(row: FitRow, sku: str) -> FitOut:
         price_range=list(result["price_range"]),
         candidate_scores=result.get("candidate_scores") or {},
         pooled=result.get("pooled"),
+        review=review_step(row, sku),
     )

@@ -36,6 +36,13 @@ ROUTES = [
     ("POST", "/v1/products/{sku}/fits", "/v1/products/TEA-001/fits", {}, "write"),
     ("GET", "/v1/products/{sku}/fits", "/v1/products/TEA-001/fits", None, "read"),
     ("GET", "/v1/products/{sku}/fits/{fit_id}", "/v1/products/TEA-001/fits/1", None, "read"),
+    (
+        "POST",
+        "/v1/products/{sku}/fits/{fit_id}/activate",
+        "/v1/products/TEA-001/fits/1/activate",
+        {"reason": "reviewed"},
+        "approve",
+    ),
     ("GET", "/v1/products/{sku}/demand-model", "/v1/products/TEA-001/demand-model", None, "read"),
     ("GET", "/v1/products/{sku}/elasticities", "/v1/products/TEA-001/elasticities", None, "read"),
     ("POST", "/v1/products/{sku}/predict", "/v1/products/TEA-001/predict", {"price": 1.0}, "read"),
