@@ -106,7 +106,7 @@ def load(settings: Settings, n_products: int) -> int:
 def refit_job(settings: Settings) -> tuple[float, dict[str, int]]:
     engine = make_engine(settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
-        job_id = jobs.create(session, kind="refit", scope="all", force=True).id
+        job_id = jobs.create(session, kind="refit", scope="all", refit_unchanged=True).id
     runner = JobRunner(engine, settings)
     runner.claim(job_id)
     started = time.perf_counter()

@@ -1,8 +1,8 @@
 """Scaling benchmark: the refit job in one process against the same job on Dask clusters.
 
 Builds a synthetic catalogue on PostgreSQL (N products x 104 weekly periods, the
-generator of ``bench/nightly.py``), then in one run times the refit job (forced, with no
-fits stored before each run):
+generator of ``bench/nightly.py``), then in one run times the refit job (unchanged
+histories too, with no fits stored before each run):
 
 - in this process (the reference);
 - on ``local:1`` and ``local:2`` with the first partition size;
@@ -102,7 +102,7 @@ def one_run(schema: str, cluster: str, partition_size: int) -> dict[str, Any]:
         conn.execute(sa.text("TRUNCATE fits CASCADE"))
     clock = in_process_clock() if not cluster else None
     with session_scope(make_session_factory(engine, writer=True)) as session:
-        job_id = jobs.create(session, kind="refit", scope="all", force=True).id
+        job_id = jobs.create(session, kind="refit", scope="all", refit_unchanged=True).id
     runner = JobRunner(engine, settings)
     runner.claim(job_id)
     load_before = os.getloadavg()[0]

@@ -18,7 +18,7 @@ from models.engine import DroppedTerm
 from models.estimate import Estimate
 from models.result import FitWarning
 
-OWN_PRICE_POSITIVE: Final = "own_price_positive"
+WRONG_SIGN: Final = "wrong_sign"
 OWN_PRICE_NOT_SIGNIFICANT: Final = "own_price_not_significant"
 FEW_OBSERVATIONS_PER_TERM: Final = "few_observations_per_term"
 LOW_PRICE_VARIATION: Final = "low_price_variation"
@@ -32,7 +32,7 @@ NEAR_COLLINEAR: Final = "near_collinear"
 WINDOW_EXCLUDED: Final = "window_excluded"
 
 WARNING_CODES: Final = (
-    OWN_PRICE_POSITIVE,
+    WRONG_SIGN,
     OWN_PRICE_NOT_SIGNIFICANT,
     FEW_OBSERVATIONS_PER_TERM,
     LOW_PRICE_VARIATION,
@@ -117,9 +117,10 @@ def warnings_from_figures(
     if own_coef > 0.0:
         found.append(
             FitWarning(
-                OWN_PRICE_POSITIVE,
-                f"The own-price coefficient is positive ({own_coef:.3g}): demand appears to rise "
-                "with price, which usually signals a missing driver or price endogeneity.",
+                WRONG_SIGN,
+                f"Wrong sign: the own-price coefficient is positive ({own_coef:.3g}), so demand "
+                "appears to rise with price, which usually signals a missing driver or price "
+                "endogeneity.",
             )
         )
     if not own_p_value < SIGNIFICANCE:

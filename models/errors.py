@@ -135,7 +135,7 @@ class UnboundedObjectiveError(PricingInputError):
 class WrongSignError(ValueError):
     """The fitted own-price effect says demand rises with price, so no optimum is meaningful.
 
-    Pass ``force=True`` to optimise anyway (the result then carries a warning).
+    Pass ``allow_wrong_sign=True`` to optimise anyway (the result then carries a warning).
 
     Attributes
     ----------

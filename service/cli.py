@@ -135,7 +135,7 @@ def _run_job(args: argparse.Namespace, settings: Settings) -> int:
                 session,
                 kind=args.command,
                 scope=_scope(args),
-                force=getattr(args, "force", False),
+                refit_unchanged=getattr(args, "refit_unchanged", False),
                 spec=spec,
                 request=request,
             ).id
@@ -333,7 +333,7 @@ def build_parser() -> argparse.ArgumentParser:
         which.add_argument("--sku", action="append", help="a sku; repeat for several")
         if kind == "refit":
             job.add_argument(
-                "--force",
+                "--refit-unchanged",
                 action="store_true",
                 help="also products whose history has not changed (needed with --spec)",
             )

@@ -46,7 +46,7 @@ def optimal_family_prices(
     scenario: Mapping[str, Any] | None = None,
     uncertainty_draws: int = 0,
     seed: int = 0,
-    force: bool = False,
+    allow_wrong_sign: bool = False,
 ) -> FamilyRecommendation:
     """Joint prices for a family that maximise total expected profit or revenue.
 
@@ -71,8 +71,8 @@ def optimal_family_prices(
         variable; ``{sku: {...}}`` entries apply to one product.
     uncertainty_draws, seed
         Coefficient draws per fit (independent across fits), each re-optimised jointly.
-    force : bool
-        Optimise even when an own-price effect is not negative.
+    allow_wrong_sign : bool
+        Optimise even when an own-price effect has the wrong sign (is not negative).
 
     Returns
     -------
@@ -115,7 +115,7 @@ def optimal_family_prices(
         order,
         max_total_change_pct,
         scenario,
-        force,
+        allow_wrong_sign,
     )
     problem = setup.problem
     solved, recommended, nit, method = solve_family(setup)
@@ -154,7 +154,7 @@ def optimal_family_prices(
                     uncertainty=u,
                     warnings=r.warnings
                     + (
-                        (notes.draws_wrong_sign(u.n_wrong_sign, u.draws),) if u.n_wrong_sign else ()
+                        (notes.wrong_sign_draws(u.n_wrong_sign, u.draws),) if u.n_wrong_sign else ()
                     ),
                 )
                 for r, u in zip(products, figures.products, strict=True)

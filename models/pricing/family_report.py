@@ -129,9 +129,9 @@ def product_recommendation(
     free_price, direction = _best_response(setup, recommended, i)
     price = float(recommended[i])
     warnings: list[FitWarning] = []
-    if p.sku in setup.forced:
+    if p.sku in setup.wrong_signed:
         own = float(demand.coef_log[i, i] + demand.coef_level[i, i])
-        warnings.append(notes.wrong_sign_forced(own))
+        warnings.append(notes.wrong_sign_allowed(own))
     bound_note = None
     side = high if direction == "above" else low
     if direction is not None and side:

@@ -47,7 +47,7 @@ class FamilySetup:
     demand: FamilyDemand
     problem: JointProblem
     search: Search
-    forced: frozenset[str]
+    wrong_signed: frozenset[str]
     no_current: list[str]
     current: FloatArray
 
@@ -104,7 +104,7 @@ def prepare_family(
     order: Sequence[tuple[str, str]],
     max_total_change_pct: float | None,
     scenario: Mapping[str, Any] | None,
-    force: bool,
+    allow_wrong_sign: bool,
 ) -> FamilySetup:
     """Check the caller's input (a :class:`PricingInputError` per problem) and build the problem."""
     skus = sorted(fits)
@@ -125,7 +125,7 @@ def prepare_family(
     _check_needs(objective, skus, rules, costs, currents, cap)
     pairs = _order_pairs(order, skus)
     fit_list = [fits[s] for s in skus]
-    forced = frozenset(check_signs(fit_list, force=force))
+    wrong_signed = frozenset(check_signs(fit_list, allow_wrong_sign=allow_wrong_sign))
     values = split_scenario(fit_list, scenario)
     demand = FamilyDemand.from_fits(fit_list, values)
 
@@ -166,7 +166,7 @@ def prepare_family(
             problem.caps.append((i, float(p.constraints.min_units), False))
     no_current = [s for s in skus if currents[s] is None]
     return FamilySetup(
-        objective, fit_list, values, demand, problem, search, forced, no_current, current
+        objective, fit_list, values, demand, problem, search, wrong_signed, no_current, current
     )
 
 

@@ -53,11 +53,11 @@ def wrong_sign_reason(fit: DemandFit) -> str:
     if math.isfinite(row.ci_low) and math.isfinite(row.ci_high):
         text += f" (95% interval {row.ci_low:.3g} to {row.ci_high:.3g})"
     text += (
-        ": expected demand does not fall as the price rises, so neither profit nor revenue "
-        "has an optimum and any optimiser would only follow the price to a bound. This "
-        "usually signals price endogeneity, a missing demand driver or too little price "
-        "variation; refit (instruments, more covariates, family pooling) or pass force=true "
-        "to optimise anyway"
+        ": the wrong sign, as expected demand does not fall when the price rises, so neither "
+        "profit nor revenue has an optimum and any optimiser would only follow the price to "
+        "a bound. This usually signals price endogeneity, a missing demand driver or too "
+        "little price variation; refit (instruments, more covariates, family pooling) or "
+        "pass allow_wrong_sign=true to optimise anyway"
     )
     codes = [w.code for w in fit.warnings]
     if codes:
@@ -67,10 +67,11 @@ def wrong_sign_reason(fit: DemandFit) -> str:
     return text + "."
 
 
-def check_signs(fits: Sequence[DemandFit], *, force: bool) -> list[str]:
-    """Skus whose own-price coefficient is not negative; raises unless ``force``."""
+def check_signs(fits: Sequence[DemandFit], *, allow_wrong_sign: bool) -> list[str]:
+    """Skus whose own-price coefficient has the wrong sign (is not negative); raises
+    unless ``allow_wrong_sign``."""
     wrong = [f for f in fits if not f.params[own_index(f)] < 0.0]
-    if wrong and not force:
+    if wrong and not allow_wrong_sign:
         raise WrongSignError(
             {f.sku: float(f.params[own_index(f)]) for f in wrong},
             " ".join(wrong_sign_reason(f) for f in wrong),

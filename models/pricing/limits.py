@@ -2,7 +2,7 @@
 
 ``max_units`` and ``min_units`` become price limits through the inverse demand curve:
 with demand falling in price, a stock cap is a price floor and a volume target a price
-ceiling (the other way round for a rising, forced wrong-signed curve).
+ceiling (the other way round for a rising curve priced despite its wrong sign).
 """
 
 from __future__ import annotations

@@ -12,9 +12,9 @@ from models.result import FitWarning
 UNBOUNDED_ABOVE: Final = "objective_unbounded_above"
 UNBOUNDED_BELOW: Final = "objective_unbounded_below"
 COST_ABOVE_PRICES: Final = "cost_above_feasible_prices"
-WRONG_SIGN_FORCED: Final = "own_price_wrong_sign_forced"
+WRONG_SIGN_ALLOWED: Final = "wrong_sign_allowed"
 NO_DEMAND: Final = "no_expected_demand"
-DRAWS_WRONG_SIGN: Final = "draws_wrong_sign"
+WRONG_SIGN_DRAWS: Final = "wrong_sign_draws"
 UNCERTAINTY_UNAVAILABLE: Final = "uncertainty_unavailable"
 NO_CURRENT_FIGURES: Final = "current_figures_unavailable"
 
@@ -23,9 +23,9 @@ WARNING_CODES: Final = (
     UNBOUNDED_ABOVE,
     UNBOUNDED_BELOW,
     COST_ABOVE_PRICES,
-    WRONG_SIGN_FORCED,
+    WRONG_SIGN_ALLOWED,
     NO_DEMAND,
-    DRAWS_WRONG_SIGN,
+    WRONG_SIGN_DRAWS,
     UNCERTAINTY_UNAVAILABLE,
     NO_CURRENT_FIGURES,
 )
@@ -86,12 +86,12 @@ def cost_above(unit_cost: float, highest: float, objective: str) -> FitWarning:
     )
 
 
-def wrong_sign_forced(coef: float) -> FitWarning:
+def wrong_sign_allowed(coef: float) -> FitWarning:
     return FitWarning(
-        WRONG_SIGN_FORCED,
-        f"The own-price coefficient is {coef:+.3g} (demand rises with price); the price was "
-        "optimised anyway because force was set, so the result follows the constraints, "
-        "not the market.",
+        WRONG_SIGN_ALLOWED,
+        f"Wrong sign: the own-price coefficient is {coef:+.3g} (demand rises with price); the "
+        "price was optimised anyway because allow_wrong_sign was set, so the result follows "
+        "the constraints, not the market.",
     )
 
 
@@ -112,17 +112,17 @@ def share_text(part: int, whole: int) -> str:
     return f"{share:.{digits}%}"
 
 
-def draws_wrong_sign(wrong: int, draws: int) -> FitWarning:
-    """Some coefficient draws have a wrong-signed own-price effect.
+def wrong_sign_draws(wrong: int, draws: int) -> FitWarning:
+    """Some coefficient draws have the wrong sign (a non-negative own-price effect).
 
-    >>> draws_wrong_sign(1, 200).message[:49]
-    '1 of 200 coefficient draws (0.5%) has a wrong-sig'
+    >>> wrong_sign_draws(1, 200).message[:49]
+    '1 of 200 coefficient draws (0.5%) has the wrong s'
     """
     verb = "has" if wrong == 1 else "have"
     return FitWarning(
-        DRAWS_WRONG_SIGN,
-        f"{wrong} of {draws} coefficient draws ({share_text(wrong, draws)}) {verb} a "
-        "wrong-signed (non-negative) own-price effect; the price interval includes their "
+        WRONG_SIGN_DRAWS,
+        f"{wrong} of {draws} coefficient draws ({share_text(wrong, draws)}) {verb} the "
+        "wrong sign (a non-negative own-price effect); the price interval includes their "
         "bound-driven optima.",
     )
 

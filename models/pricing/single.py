@@ -19,6 +19,7 @@ from models.guards import price_range_warning
 from models.pricing import notes
 from models.pricing.constraints import Interval, PriceConstraints, grid_prices
 from models.pricing.curve import DemandCurve, scenario_values
+from models.pricing.decide import NO_HARM_CHECK, check_decision, choose
 from models.pricing.inputs import (
     check_curve_points,
     check_draws,
@@ -152,7 +153,12 @@ def _unbounded_warning(
 
 
 def _message(status: int, binding: list[str], grid: str | None, n_grid: int) -> str:
-    if status == STATUS_UNBOUNDED:
+    if binding == [NO_HARM_CHECK]:
+        text = (
+            "The current price is kept: moving did not win clearly enough over the "
+            "estimate's distribution (do-no-harm check)."
+        )
+    elif status == STATUS_UNBOUNDED:
         text = f"No finite optimum; the price sits on {', '.join(binding)}."
     elif status == STATUS_CONSTRAINED:
         text = f"Optimum held by a constraint: {', '.join(binding)}."
@@ -200,7 +206,9 @@ def optimal_price(
     uncertainty_draws: int = 0,
     seed: int = 0,
     curve_points: int = 0,
-    force: bool = False,
+    allow_wrong_sign: bool = False,
+    decision: str = "point",
+    no_harm_check: bool = False,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
 
@@ -227,8 +235,16 @@ def optimal_price(
     seed : int
     curve_points : int
         0, or 50-200 plotting points of price, units, revenue and profit.
-    force : bool
-        Optimise even when the own-price effect is not negative.
+    allow_wrong_sign : bool
+        Optimise even when the own-price effect has the wrong sign (is not negative).
+    decision : {"point", "expected", "cautious"}
+        How the price is chosen from the estimate: ``point`` takes the fitted coefficients
+        as exact; ``expected`` maximises the mean profit (or revenue) over the estimate's
+        normal distribution; ``cautious`` maximises its 10th percentile. See
+        :mod:`models.pricing.decide`; every rule reports the value of knowing.
+    no_harm_check : bool
+        Keep the current price unless the chosen one wins on average and in at least 80%
+        of the estimate's distribution (needs a current price the constraints allow).
 
     Returns
     -------
@@ -237,7 +253,7 @@ def optimal_price(
     Raises
     ------
     WrongSignError
-        The own-price coefficient is not negative (unless ``force``).
+        The own-price coefficient has the wrong sign (unless ``allow_wrong_sign``).
     MissingUnitCostError
         ``objective="profit"`` or ``min_margin_pct`` without ``unit_cost``.
     InfeasibleConstraintsError
@@ -265,6 +281,7 @@ def optimal_price(
     current_price = check_value("current_price", current_price, positive=True)
     check_draws(uncertainty_draws)
     check_curve_points(curve_points)
+    check_decision(decision)
     constraints = constraints or PriceConstraints()
     if objective == "profit" and unit_cost is None:
         raise MissingUnitCostError([fit.sku], "objective=profit")
@@ -272,7 +289,7 @@ def optimal_price(
         raise MissingUnitCostError([fit.sku], "min_margin_pct")
     if constraints.max_change_pct is not None and current_price is None:
         raise PricingInputError(f"{fit.sku}: max_change_pct needs the current price")
-    forced = check_signs([fit], force=force)
+    wrong_signed = check_signs([fit], allow_wrong_sign=allow_wrong_sign)
     values = scenario_values(fit, scenario)
     curve = DemandCurve.from_fit(fit, values)
     cost = unit_cost if objective == "profit" and unit_cost is not None else 0.0
@@ -287,6 +304,7 @@ def optimal_price(
 
     grid_name = constraints.grid_name
     price, nit, method = best.price, best.nit, "continuous"
+    allowed: FloatArray | None = None
     if grid_name is not None:
         allowed = grid_prices(constraints, iv.low, iv.high)
         assert allowed is not None
@@ -299,14 +317,32 @@ def optimal_price(
             )
         price, nit = _pick_grid(curve, cost, allowed, best.price)
         method = "grid"
+    point_price = price
+    price, decided, decision_notes = choose(
+        fit,
+        values,
+        iv,
+        rule=decision,
+        no_harm_check=no_harm_check,
+        cost=cost,
+        current_price=current_price,
+        reference=reference,
+        allowed=allowed,
+        point_price=point_price,
+    )
 
     low, high = _binding_sides(curve, cost, best.price, iv)
+    if price != point_price:  # the rule moved the price: a bound binds only if it is on it
+        low = iv.sources("low") if at_bound(price, iv.low) else []
+        high = iv.sources("high") if at_bound(price, iv.high) else []
     binding = low + high
-    if grid_name is not None and not at_bound(price, best.price):
+    if decided is not None and decided.held_current:
+        binding = [NO_HARM_CHECK]
+    if grid_name is not None and not at_bound(point_price, best.price) and price == point_price:
         binding.append(grid_name)
-    warnings: list[FitWarning] = []
-    if forced:
-        warnings.append(notes.wrong_sign_forced(float(curve.coef)))
+    warnings: list[FitWarning] = list(decision_notes)
+    if wrong_signed:
+        warnings.append(notes.wrong_sign_allowed(float(curve.coef)))
     bound_note = _unbounded_warning(curve, free, objective, price, low, high)
     if bound_note is not None:
         warnings.append(bound_note)
@@ -363,4 +399,5 @@ def optimal_price(
         search=SEARCH_WORDS[method],
         search_steps=nit,
         summary=_message(status, binding, grid_name, nit),
+        decision=decided,
     )

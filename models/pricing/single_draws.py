@@ -132,4 +132,4 @@ def draw_uncertainty(
         n_infeasible=int(infeasible.sum()),
         n_unbounded=int(unbounded.sum()),
     )
-    return result, ([notes.draws_wrong_sign(wrong, n)] if wrong else [])
+    return result, ([notes.wrong_sign_draws(wrong, n)] if wrong else [])

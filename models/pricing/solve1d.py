@@ -1,7 +1,7 @@
 """One-dimensional maximisation of profit or revenue over an interval of prices.
 
 A coarse geometric grid finds the best region (robust to kinks and to objectives that
-are not unimodal, e.g. a forced wrong-signed fit); the first-order condition
+are not unimodal, e.g. a wrong-signed fit priced anyway); the first-order condition
 ``units + (price - cost) * d units / d price = 0`` is then solved to machine precision
 by Brent's method (:func:`scipy.optimize.brentq`) inside the bracket around the best
 grid point. Where the bracket shows no sign change (a kink, a flat stretch), bounded

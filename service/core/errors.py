@@ -74,7 +74,7 @@ class Conflict(ServiceError):
 
 @dataclass
 class WrongSign(Conflict):
-    """The fit says demand rises with price; pricing refuses unless forced."""
+    """The fit says demand rises with price; pricing refuses unless allow_wrong_sign is set."""
 
     reason: str = ""
 
@@ -249,7 +249,7 @@ def from_library(
         )
     if isinstance(exc, WrongSignError):
         return WrongSign(
-            f'{exc.reason} Refusing to optimise; send "force": true to optimise anyway.',
+            f'{exc.reason} Refusing to optimise; send "allow_wrong_sign": true to optimise anyway.',
             reason=exc.reason,
         )
     if isinstance(exc, InfeasibleConstraintsError):

@@ -23,7 +23,7 @@ JOB_DURATION = Histogram(
     buckets=(0.1, 0.5, 1, 2, 5, 10, 30, 60, 120, 300, 600, 1800, 3600),
 )
 FITS = Counter(
-    "marginal_fits_total", "Fits by outcome (activated, rejected, failed, skipped)", ["outcome"]
+    "marginal_fits_total", "Fits by outcome (activated, rejected, failed, unchanged)", ["outcome"]
 )
 JOB_PRODUCTS = Counter(
     "marginal_job_products_total", "Products handled by jobs, by outcome", ["kind", "outcome"]

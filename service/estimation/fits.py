@@ -120,7 +120,7 @@ def rejected_by(gates: dict[str, Any] | None) -> list[tuple[str, str]]:
 
 # What a user can do about each gate a fit failed (said in the 404 of pricing and answers).
 REMEDIES = {
-    "expected_sign": "charge a wider spread of prices for a while so the price effect shows "
+    "wrong_sign": "charge a wider spread of prices for a while so the price effect shows "
     "(POST /v1/products/{sku}/price-tests plans one), or add the covariates that move with "
     "price, such as promotions",
     "price_variation": "charge a wider spread of prices for a while (POST "

@@ -28,13 +28,13 @@ def quality_gates(
     own = fit.own_price
     gates = [
         GateResult(
-            "expected_sign",
+            "wrong_sign",
             own.estimate < 0,
             f"own-price coefficient {own.estimate:.4g} "
             + (
                 "is negative, as demand should fall when price rises"
                 if own.estimate < 0
-                else "is not negative: demand would not fall when price rises"
+                else "is not negative, the wrong sign: demand would not fall when price rises"
             ),
         ),
         GateResult(

@@ -3,7 +3,7 @@
 Products that share a spec are fitted together (`models.fit_many`) in batches; each
 batch's fits, activations and the job's progress are written in one transaction.
 Incremental by default: a product whose latest fit is newer than its last history
-change is skipped unless the job is forced.
+change is left alone (counted as unchanged) unless the job refits unchanged histories.
 
 Each batch is read, fitted, then written, and the next batch is read while this one is
 fitted (how, per database: :mod:`service.estimation.batch_reads`). On PostgreSQL the
@@ -44,7 +44,7 @@ def select_candidates(
     progress: jobs.Progress,
     within: tuple[int, int] | None = None,
 ) -> list[Candidate]:
-    """Products to fit now; counts skipped and unknown ones into ``progress``.
+    """Products to fit now; counts unchanged and unknown ones into ``progress``.
 
     ``within``: only the product ids in this range (a partition; unknown skus are the
     job's to count). Fits made by this job itself do not make a product fresh, so a
@@ -97,9 +97,9 @@ def select_candidates(
         fresh = row.at is not None and (
             row.history_changed_at is None or as_utc(row.at) >= as_utc(row.history_changed_at)
         )
-        if fresh and not options.get("force"):
+        if fresh and not options.get("refit_unchanged"):
             progress.done += 1
-            progress.counts["skipped"] += 1
+            progress.counts["unchanged"] += 1
             continue
         spec, key = spec_of(row.default_spec)
         chosen.append(Candidate(row.id, row.sku, row.family, spec, key))

@@ -118,7 +118,7 @@ def run_on_cluster(
                 base.counts["failed"] += 1
                 base.add_error(sku, "no such product")
         if kind == "reprice":
-            base.counts["recommended"] = 0
+            base.counts.update(dict.fromkeys(jobs.REPRICE_COUNT_NAMES, 0))
         ranges = partitions.plan(session, job=job, size=settings.job_partition_size)
         partitions.create(session, job_id=job_id, ranges=ranges)
 

@@ -14,7 +14,7 @@ from typing import IO, Any
 from tqdm import tqdm
 
 from service.core.tables import JobRow
-from service.jobs.queue import COUNT_NAMES, Progress
+from service.jobs.queue import COUNT_NAMES, REPRICE_COUNT_NAMES, Progress
 
 
 class JobProgressDisplay:
@@ -75,7 +75,7 @@ class JobProgressDisplay:
 def print_summary(row: JobRow, stream: IO[str] | None = None, max_errors: int = 10) -> None:
     out = stream or sys.stdout
     counts = row.counts or {}
-    names = [n for n in (*COUNT_NAMES, "recommended") if n in counts]
+    names = [n for n in (*COUNT_NAMES, *REPRICE_COUNT_NAMES) if n in counts]
     width = max(len(n) for n in names) if names else 8
     print(f"\n{row.kind} job {row.id}: {row.status}  ({row.done}/{row.total} products)", file=out)
     print(f"{'outcome':<{width}}  {'products':>8}", file=out)

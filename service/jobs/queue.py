@@ -32,7 +32,9 @@ QUEUED, RUNNING, SUCCEEDED, FAILED, CANCELLED = (
 )
 FINISHED = (SUCCEEDED, FAILED, CANCELLED)
 MAX_STORED_ERRORS = 1000
-COUNT_NAMES = ("activated", "rejected", "failed", "skipped")
+COUNT_NAMES = ("activated", "rejected", "failed", "unchanged")
+# Counts a reprice job adds to them.
+REPRICE_COUNT_NAMES = ("recommended", "no_active_fit")
 
 
 def worker_name() -> str:
@@ -64,7 +66,7 @@ def create(
     *,
     kind: str,
     scope: object,
-    force: bool = False,
+    refit_unchanged: bool = False,
     spec: dict[str, Any] | None = None,
     request: dict[str, Any] | None = None,
     schedule_name: str | None = None,
@@ -72,7 +74,7 @@ def create(
     row = JobRow(
         kind=kind,
         scope=normalise_scope(scope),
-        options={"force": force, "spec": spec, "request": request},
+        options={"refit_unchanged": refit_unchanged, "spec": spec, "request": request},
         status=QUEUED,
         done=0,
         total=0,

@@ -41,7 +41,12 @@ def create_job(body: JobIn, session: WriteSession) -> JobOut:
     `GET /v1/jobs/{id}` for its progress."""
     scope = body.scope if isinstance(body.scope, str) else body.scope.model_dump()
     row = submit.submit(
-        session, kind=body.kind, scope=scope, force=body.force, spec=body.spec, request=body.request
+        session,
+        kind=body.kind,
+        scope=scope,
+        refit_unchanged=body.refit_unchanged,
+        spec=body.spec,
+        request=body.request,
     )
     return job_out(row)
 
@@ -84,7 +89,11 @@ def list_jobs(
 def check_job_options(body: JobIn, prefix: str = "") -> None:
     """A job's options, checked before it is queued or scheduled."""
     submit.check_options(
-        kind=body.kind, force=body.force, spec=body.spec, request=body.request, prefix=prefix
+        kind=body.kind,
+        refit_unchanged=body.refit_unchanged,
+        spec=body.spec,
+        request=body.request,
+        prefix=prefix,
     )
 
 

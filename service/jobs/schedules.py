@@ -159,7 +159,7 @@ def tick(writes: sessionmaker[Session], *, now: dt.datetime | None = None) -> li
                     session,
                     kind=template["kind"],
                     scope=template["scope"],
-                    force=bool(template.get("force", False)),
+                    refit_unchanged=bool(template.get("refit_unchanged", False)),
                     spec=template.get("spec"),
                     request=template.get("request"),
                     schedule_name=name,

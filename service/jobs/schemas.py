@@ -41,9 +41,10 @@ class JobIn(Strict):
     scope: JobScope = Field(
         default="all", description='"all", {"family": "..."} or {"skus": ["...", ...]}'
     )
-    force: StrictBool = Field(
+    refit_unchanged: StrictBool = Field(
         default=False,
-        description="refit: also products whose history has not changed since their latest fit",
+        description="refit: also products whose history has not changed since their latest fit "
+        "(needed with a spec)",
     )
     spec: dict[str, Any] | None = Field(
         default=None, description="refit: one spec for every product (default: each product's)"
@@ -63,8 +64,14 @@ class JobCounts(BaseModel):
     activated: int = 0
     rejected: int = 0
     failed: int = 0
-    skipped: int = 0
+    unchanged: int = Field(
+        default=0,
+        description="refit: products left alone, their history unchanged since their latest fit",
+    )
     recommended: int = 0
+    no_active_fit: int = Field(
+        default=0, description="reprice: products left unpriced, having no active fit"
+    )
 
 
 class JobError(BaseModel):
@@ -76,7 +83,7 @@ class JobOut(BaseModel):
     id: int
     kind: JobKind
     scope: Any = Field(description='"all", {"family": "..."} or {"skus": [...]}')
-    force: bool
+    refit_unchanged: bool
     status: JobStatus
     progress: JobProgress
     counts: JobCounts
@@ -121,7 +128,7 @@ def job_out(row: JobRow) -> JobOut:
         id=row.id,
         kind=row.kind,
         scope=scope,
-        force=bool((row.options or {}).get("force")),
+        refit_unchanged=bool((row.options or {}).get("refit_unchanged")),
         status=row.status,
         progress=JobProgress(done=row.done, total=row.total),
         counts=JobCounts(**(row.counts or {})),

@@ -22,7 +22,7 @@ from service.pricing.schemas import OptimalPriceRequest
 def check_options(
     *,
     kind: str,
-    force: bool,
+    refit_unchanged: bool,
     spec: dict[str, Any] | None,
     request: dict[str, Any] | None,
     prefix: str = "",
@@ -44,11 +44,13 @@ def check_options(
             ) from None
     if kind == "refit" and spec is not None:
         fits.parse_spec(spec, field_prefix=f"{prefix}spec")
-        if not force:
+        if not refit_unchanged:
             raise InvalidInput(
-                "a refit with a given spec needs force: without it, products whose history "
-                "has not changed keep their fits and the spec is never used",
-                errors=[ErrorItem(field=f"{prefix}force", message="must be true with a spec")],
+                "a refit with a given spec needs refit_unchanged: without it, products whose "
+                "history has not changed keep their fits and the spec is never used",
+                errors=[
+                    ErrorItem(field=f"{prefix}refit_unchanged", message="must be true with a spec")
+                ],
             )
 
 
@@ -71,14 +73,19 @@ def submit(
     *,
     kind: str,
     scope: object,
-    force: bool = False,
+    refit_unchanged: bool = False,
     spec: dict[str, Any] | None = None,
     request: dict[str, Any] | None = None,
 ) -> JobRow:
     """Check a job's options and scope, then queue it."""
-    check_options(kind=kind, force=force, spec=spec, request=request)
+    check_options(kind=kind, refit_unchanged=refit_unchanged, spec=spec, request=request)
     normalised = queue.normalise_scope(scope)
     check_scope(session, normalised)
     return queue.create(
-        session, kind=kind, scope=normalised, force=force, spec=spec, request=request
+        session,
+        kind=kind,
+        scope=normalised,
+        refit_unchanged=refit_unchanged,
+        spec=spec,
+        request=request,
     )

@@ -28,7 +28,7 @@ def run_reprice(
 ) -> jobs.Progress:
     reads, writes = factories
     progress = jobs.Progress()
-    progress.counts["recommended"] = 0
+    progress.counts.update(dict.fromkeys(jobs.REPRICE_COUNT_NAMES, 0))
     with session_scope(reads) as session:
         job = jobs.get_or_raise(session, job_id=job_id)
         request = job_request(job)
@@ -92,12 +92,13 @@ def price_batch(
     progress: jobs.Progress,
 ) -> list[dict[str, Any]]:
     """A batch's recommendations to store (one per product with an active fit); the
-    others are counted as skipped or failed with their reason, each product alone."""
+    others are counted as having no active fit or as failed with their reason, each
+    product alone."""
     records: list[dict[str, Any]] = []
     for product, fit_id, created_at in batch:
         if fit_id is None:
-            progress.counts["skipped"] += 1
-            progress.add_error(product.sku, "skipped: no active fit")
+            progress.counts["no_active_fit"] += 1
+            progress.add_error(product.sku, "no active fit")
             continue
         try:
             fit = fit_cache.get(session, fit_id, created_at)

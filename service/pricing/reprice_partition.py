@@ -34,7 +34,7 @@ def reprice_partition(task: partitions.PartitionTask) -> partitions.PartitionRep
         products = reprice.candidates(session, job=job, id_range=(task.first_id, task.last_id))
     if claimed.batches_done == 0:
         progress = jobs.Progress(total=len(products))
-        progress.counts["recommended"] = 0
+        progress.counts.update(dict.fromkeys(jobs.REPRICE_COUNT_NAMES, 0))
     else:
         progress = claimed.progress
     size = settings.job_batch_size

@@ -121,7 +121,7 @@ def _stored_rules(
             uncertainty_draws=int(request.get("uncertainty_draws") or 0),
             seed=int(request.get("seed") or 0),
             curve_points=CURVE_POINTS,
-            force=False,
+            allow_wrong_sign=False,
         ),
         source=source,
     )

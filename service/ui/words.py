@@ -24,7 +24,7 @@ class Badge:
 
 # Fit warnings that question the price effect itself are cautions; the rest are notes.
 _FIT_WARNINGS = {
-    "own_price_positive": ("price effect has the wrong sign", "caution"),
+    "wrong_sign": ("price effect has the wrong sign", "caution"),
     "own_price_not_significant": ("price effect unclear", "caution"),
     "few_observations_per_term": ("few {periods} per term", "caution"),
     "low_price_variation": ("price barely varied", "caution"),
@@ -43,9 +43,9 @@ _PRICING_WARNINGS = {
     "objective_unbounded_above": ("set by an upper limit", "note"),
     "objective_unbounded_below": ("set by a lower limit", "note"),
     "cost_above_feasible_prices": ("cost above allowed prices", "caution"),
-    "own_price_wrong_sign_forced": ("priced despite wrong sign", "caution"),
+    "wrong_sign_allowed": ("priced despite the wrong sign", "caution"),
     "no_expected_demand": ("no demand at this price", "caution"),
-    "draws_wrong_sign": ("some draws have the wrong sign", "note"),
+    "wrong_sign_draws": ("some draws have the wrong sign", "note"),
     "uncertainty_unavailable": ("no uncertainty figures", "note"),
     "current_figures_unavailable": ("no current figures", "note"),
 }
@@ -64,7 +64,7 @@ def pricing_badge(code: str, message: str) -> Badge:
 
 # Quality gates as a sentence names them, and as a table cell does.
 _GATES = {
-    "expected_sign": ("the price effect must be negative", "price effect negative"),
+    "wrong_sign": ("the price effect must not have the wrong sign", "no wrong sign"),
     "price_variation": ("the price must have varied enough", "price varied enough"),
     "enough_observations": ("enough periods of history", "enough periods"),
     "holdout_not_worse": (

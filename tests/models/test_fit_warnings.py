@@ -91,7 +91,7 @@ def _long_history() -> tuple[History, ModelSpec]:
 
 
 TRIGGERS: dict[str, Callable[[], tuple[History, ModelSpec]]] = {
-    "own_price_positive": _positive_price,
+    "wrong_sign": _positive_price,
     "own_price_not_significant": _no_price_effect,
     "few_observations_per_term": _few_obs,
     "low_price_variation": _flat_price,

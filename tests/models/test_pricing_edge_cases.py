@@ -141,10 +141,10 @@ def test_wrong_signed_own_price_effect() -> None:
     assert error.skus == ["TEA-100"]
     assert error.coefficients["TEA-100"] == pytest.approx(0.7)
     assert "own-price coefficient of the log-log fit is +0.7" in error.reason
-    assert "force=true" in error.reason
+    assert "allow_wrong_sign=true" in error.reason
     assert not isinstance(error, InfeasibleConstraintsError)  # distinct: HTTP 409, not 422
-    forced = optimal_price(fit, unit_cost=5.0, force=True)
-    assert codes(forced)[0] == "own_price_wrong_sign_forced"
+    forced = optimal_price(fit, unit_cost=5.0, allow_wrong_sign=True)
+    assert codes(forced)[0] == "wrong_sign_allowed"
     assert forced.recommended.price == pytest.approx(17.6)  # demand rises with price
 
 

@@ -268,8 +268,8 @@ def test_family_errors() -> None:
     with pytest.raises(WrongSignError) as sign:
         optimal_family_prices(wrong, unit_costs=COSTS)
     assert sign.value.skus == ["A"]
-    forced = optimal_family_prices(wrong, unit_costs=COSTS, force=True)
-    assert forced.product("A").warnings[0].code == "own_price_wrong_sign_forced"
+    forced = optimal_family_prices(wrong, unit_costs=COSTS, allow_wrong_sign=True)
+    assert forced.product("A").warnings[0].code == "wrong_sign_allowed"
 
 
 def test_family_scenario_applies_shared_and_per_product_values() -> None:

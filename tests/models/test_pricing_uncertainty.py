@@ -77,7 +77,7 @@ def test_draws_match_optimising_each_drawn_fit(form: str, constraints: PriceCons
                     unit_cost=cost,
                     current_price=current,
                     constraints=constraints,
-                    force=True,
+                    allow_wrong_sign=True,
                 ).recommended.price
             )
         except InfeasibleConstraintsError:  # this draw's demand cannot meet the stock limit
@@ -117,7 +117,7 @@ def test_weakly_identified_price_effect_reports_wrong_signed_draws() -> None:
     assert own.estimate < 0.0 < own.ci_high  # negative, but not significantly
     result = optimal_price(fit, objective="revenue", uncertainty_draws=200)
     assert result.uncertainty is not None and result.uncertainty.n_wrong_sign > 0
-    assert "draws_wrong_sign" in [w.code for w in result.warnings]
+    assert "wrong_sign_draws" in [w.code for w in result.warnings]
 
 
 def test_unusable_covariance_gives_no_uncertainty_but_an_answer() -> None:
@@ -155,7 +155,9 @@ def test_family_draws_match_optimising_each_drawn_family(family) -> None:
     optima = []
     for d in range(n):
         drawn = {sku: with_params(fits[sku], draws[sku][d]) for sku in skus}
-        solved = optimal_family_prices(drawn, unit_costs=costs, current_prices=current, force=True)
+        solved = optimal_family_prices(
+            drawn, unit_costs=costs, current_prices=current, allow_wrong_sign=True
+        )
         optima.append([p.recommended.price for p in solved.products])
     optima_array = np.array(optima)
     for i, product in enumerate(result.products):
@@ -169,10 +171,10 @@ def test_family_draws_match_optimising_each_drawn_family(family) -> None:
 
 def test_a_small_share_of_wrong_signed_draws_keeps_a_digit() -> None:
     # "1 of 200 draws (0.5%)", never "0%" for a share that is not zero (issue wording).
-    from models.pricing.notes import draws_wrong_sign, share_text
+    from models.pricing.notes import share_text, wrong_sign_draws
 
     assert share_text(1, 200) == "0.5%" and share_text(1, 2000) == "0.05%"
     assert share_text(0, 200) == "0%" and share_text(30, 200) == "15%"
-    one = draws_wrong_sign(1, 200).message
-    assert one.startswith("1 of 200 coefficient draws (0.5%) has ")
-    assert draws_wrong_sign(5, 200).message.startswith("5 of 200 coefficient draws (2.5%) have ")
+    one = wrong_sign_draws(1, 200).message
+    assert one.startswith("1 of 200 coefficient draws (0.5%) has the wrong sign")
+    assert wrong_sign_draws(5, 200).message.startswith("5 of 200 coefficient draws (2.5%) have ")

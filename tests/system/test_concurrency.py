@@ -253,7 +253,7 @@ def test_concurrent_writers_readers_and_refit_equal_a_serial_replay(db: Database
             with client() as http:
                 while not writers_done.is_set() and time.monotonic() < deadline:
                     created = http.post(
-                        "/v1/jobs", json={"kind": "refit", "scope": "all", "force": True}
+                        "/v1/jobs", json={"kind": "refit", "scope": "all", "refit_unchanged": True}
                     )
                     assert created.status_code == 202, created.text
                     job_id = created.json()["id"]

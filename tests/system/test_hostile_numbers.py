@@ -180,12 +180,12 @@ def exercise_fit(
         )
     requests: list[dict[str, Any]] = [
         {"objective": "revenue", "uncertainty_draws": 10, "curve_points": 50},
-        {"objective": "profit", "unit_cost": low / 2, "force": True},
+        {"objective": "profit", "unit_cost": low / 2, "allow_wrong_sign": True},
         {
             "objective": "profit",
             "unit_cost": high,
             "constraints": {"allow_extrapolation": True, "max_price": 1e308},
-            "force": True,
+            "allow_wrong_sign": True,
         },
     ]
     for body in requests:
@@ -235,7 +235,8 @@ def test_refit_and_reprice_jobs_over_hostile_histories(
     )
     assert imported.status_code == 200, imported.text[:500]
     jobs: list[dict[str, Any]] = [
-        {"kind": "refit", "scope": "all", "force": True, "spec": {"form": form}} for form in FORMS
+        {"kind": "refit", "scope": "all", "refit_unchanged": True, "spec": {"form": form}}
+        for form in FORMS
     ]
     # After the refits, the active fits are of every form that passed somewhere.
     jobs.append({"kind": "reprice", "scope": "all", "request": {"objective": "revenue"}})

@@ -31,6 +31,12 @@ SYNONYMS = {
     r"\bbusiness rules?\b": "constraint",
     r"\bladder rules?\b": "order constraint",
 }
+# Names retired because one word named two ideas, or one idea had several names.
+RETIRED_NAMES = {
+    r"\bforced?\b": "refit_unchanged (jobs) or allow_wrong_sign (pricing)",
+    r"\bskipped\b": "unchanged (refit) or no_active_fit (reprice)",
+    r"own_price_positive|expected_sign|draws_wrong_sign|wrong_sign_forced|upward": "wrong sign",
+}
 # Fields of a recommendation that carried an optimiser's vocabulary.
 OPTIMISER_FIELDS = {"method", "success", "status", "message", "nit"}
 
@@ -100,6 +106,35 @@ def test_no_retired_synonyms(pattern: str, word: str) -> None:
     assert found == [], f"say {word!r}"
 
 
+@pytest.mark.parametrize(("pattern", "word"), list(RETIRED_NAMES.items()))
+def test_no_retired_names(pattern: str, word: str) -> None:
+    found = [
+        (where, match.group(0))
+        for where, text in _all_texts()
+        for match in re.finditer(pattern, text, re.IGNORECASE)
+    ]
+    assert found == [], f"say {word!r}"
+
+
+def test_the_wrong_sign_has_one_name() -> None:
+    # Warning codes and quality gates are identifiers the API returns without listing
+    # them in the OpenAPI document: every one about the sign of the price effect starts
+    # with wrong_sign.
+    import models
+    from models.checks import WARNING_CODES as FIT_CODES
+    from models.pricing.notes import WARNING_CODES as PRICING_CODES
+    from service.core.settings import Settings
+    from service.estimation.gates import quality_gates
+
+    product = models.generate_catalogue(7).product("TEA-004")
+    fit = models.fit_demand(product.history, models.ModelSpec())
+    gates = [g.name for g in quality_gates(fit, None, Settings())]
+    names = [*FIT_CODES, *PRICING_CODES, *gates]
+    about_sign = [n for n in names if "sign" in n and "significant" not in n]
+    assert about_sign and all(n.startswith("wrong_sign") for n in about_sign), about_sign
+    assert {"wrong_sign", "wrong_sign_allowed", "wrong_sign_draws"} <= set(names)
+
+
 def test_recommendations_carry_no_optimiser_fields() -> None:
     schemas = json.loads(OPENAPI_PATH.read_text())["components"]["schemas"]
     for name in ("RecommendationOut", "FamilyRecommendationOut"):
@@ -119,3 +154,7 @@ def test_the_deny_list_finds_what_it_should() -> None:
     for sample in list(samples.values())[2:]:
         assert any(re.search(p, sample) for p in SYNONYMS), sample
     assert not any(re.search(p, "holdout_wape and hold-out weeks") for p in SYNONYMS)
+    for retired in ("--force", '"force": true', "skipped 3", "expected_sign", "draws_wrong_sign"):
+        assert any(re.search(p, retired) for p in RETIRED_NAMES), retired
+    for kept in ("refit_unchanged", "allow_wrong_sign", "no_active_fit", "wrong_sign_draws"):
+        assert not any(re.search(p, kept) for p in RETIRED_NAMES), kept

@@ -59,18 +59,20 @@ def test_a_bad_reprice_request_is_one_line(run, request_text: str, said: str) ->
 
 
 @pytest.mark.storage
-def test_a_spec_without_force_is_refused(run, db: Database) -> None:  # type: ignore[no-untyped-def]
+def test_a_spec_without_refit_unchanged_is_refused(run, db: Database) -> None:  # type: ignore[no-untyped-def]
     demo.load(db.settings, seed=7)
     code, _, err = run("refit", "--sku", "TEA-004", "--spec", '{"form": "log-log"}')
     assert code == 2
-    assert "needs force" in _one_error_line(err)
-    code, out, _ = run("refit", "--sku", "TEA-004", "--spec", '{"form": "log-log"}', "--force")
+    assert "needs refit_unchanged" in _one_error_line(err)
+    code, out, _ = run(
+        "refit", "--sku", "TEA-004", "--spec", '{"form": "log-log"}', "--refit-unchanged"
+    )
     assert code == 0 and "activated" in out, out + err
 
 
 @pytest.mark.storage
 def test_an_invalid_spec_is_one_line(run) -> None:  # type: ignore[no-untyped-def]
-    code, _, err = run("refit", "--all", "--force", "--spec", '{"form": "cubic"}')
+    code, _, err = run("refit", "--all", "--refit-unchanged", "--spec", '{"form": "cubic"}')
     assert code == 2
     assert "the model specification is invalid" in _one_error_line(err)
 
@@ -85,11 +87,13 @@ def test_a_family_without_products_is_refused(run, db: Database) -> None:  # typ
 
 
 @pytest.mark.storage
-def test_reprice_has_no_force_option(run) -> None:  # type: ignore[no-untyped-def]
-    # It had one that did nothing; argparse now refuses it (exit 2, its own usage line).
-    with pytest.raises(SystemExit) as refused:
-        run("reprice", "--all", "--force")
-    assert refused.value.code == 2
+def test_reprice_has_no_refit_option(run) -> None:  # type: ignore[no-untyped-def]
+    # It once took a switch that did nothing; argparse refuses the refit's switch and the
+    # retired name alike (exit 2, its own usage line), and refit no longer knows --force.
+    for command in (("reprice", "--refit-unchanged"), ("reprice", "--force"), ("refit", "--force")):
+        with pytest.raises(SystemExit) as refused:
+            run(*command, "--all")
+        assert refused.value.code == 2
 
 
 @pytest.mark.storage

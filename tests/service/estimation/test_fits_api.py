@@ -34,7 +34,7 @@ def test_fit_versions_and_activation(shop: TestClient, headers: dict[str, str]) 
     assert body["spec"]["form"] == "auto" and body["form"] in body["candidate_scores"]
     assert body["gates"]["passed"] is True
     assert {g["name"] for g in body["gates"]["checks"]} == {
-        "expected_sign",
+        "wrong_sign",
         "price_variation",
         "enough_observations",
         "holdout_not_worse",
@@ -78,8 +78,8 @@ def test_a_failing_fit_is_rejected_and_the_active_one_kept(
     bad = shop.post("/v1/products/TEA-001/fits", json={"spec": NAIVE}, headers=headers).json()
     assert bad["status"] == "rejected"
     failed = [g["name"] for g in bad["gates"]["checks"] if not g["passed"]]
-    assert failed == ["expected_sign"]
-    assert "own_price_positive" in [w["code"] for w in bad["warnings"]]
+    assert failed == ["wrong_sign"]
+    assert "wrong_sign" in [w["code"] for w in bad["warnings"]]
     active = shop.get("/v1/products/TEA-001/demand-model", headers=headers).json()
     assert active["id"] == good["id"]
 

@@ -40,10 +40,10 @@ REL, ABS = 1e-9, 1e-12
 
 
 def _run(settings: Settings, *, spec: dict[str, Any] | None = None) -> tuple[str, list[int]]:
-    """Run a forced refit of everything; the job's status and the progress it reported."""
+    """Refit everything, unchanged histories too; the job's status and the progress it reported."""
     engine = make_engine(settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
-        job_id = jobs.create(session, kind="refit", scope="all", force=True, spec=spec).id
+        job_id = jobs.create(session, kind="refit", scope="all", refit_unchanged=True, spec=spec).id
     runner = JobRunner(engine, settings)
     runner.claim(job_id)
     seen: list[int] = []
@@ -263,7 +263,7 @@ def test_a_job_reads_the_rest_itself_when_a_reader_process_dies(
     settings = db.settings.model_copy(update={"job_batch_size": 4})
     engine = make_engine(settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
-        job_id = jobs.create(session, kind="refit", scope="all", force=True).id
+        job_id = jobs.create(session, kind="refit", scope="all", refit_unchanged=True).id
     runner = JobRunner(engine, settings)
     runner.claim(job_id)
 

@@ -35,7 +35,7 @@ def test_never_fitted_says_fit_one(shop: TestClient, headers: dict[str, str]) ->
     ("sku", "gate", "remedy"),
     [
         # The demo's two traps: a wrong-signed price effect and a price that never moved.
-        ("TEA-001", "expected_sign", "/v1/products/TEA-001/price-tests"),
+        ("TEA-001", "wrong_sign", "/v1/products/TEA-001/price-tests"),
         ("TEA-009", "price_variation", "/v1/products/TEA-009/price-tests"),
     ],
 )

@@ -114,7 +114,7 @@ def test_a_product_that_cannot_be_read_fails_alone_in_refit_reprice_and_report(
     _shop(client, headers)
     _poison(db)
 
-    status, job = _run_job(db, "refit", force=True)
+    status, job = _run_job(db, "refit", refit_unchanged=True)
     assert job.counts is not None
     assert job.counts["activated"] + job.counts["rejected"] == 2, (job.counts, job.errors)
     assert job.counts["failed"] == 1
@@ -129,7 +129,7 @@ def test_a_product_that_cannot_be_read_fails_alone_in_refit_reprice_and_report(
     assert job.counts is not None
     assert job.counts["recommended"] == 1, (job.counts, job.errors)
     assert job.counts["failed"] == 1 and "TEA-GOOD-2" in _reasons(job)
-    assert job.counts["skipped"] == 1 and "TEA-BAD" in _reasons(job)
+    assert job.counts["no_active_fit"] == 1 and "TEA-BAD" in _reasons(job)
 
     # The emptied record has served its purpose; the report shows that product unfitted.
     engine = make_engine(db.settings)

@@ -97,7 +97,7 @@ def test_cluster_refit_and_reprice_equal_the_in_process_jobs(
     demo.load(db.settings, seed=7)
     small = {"job_batch_size": 4}
     in_process = db.settings.model_copy(update=small)
-    reference_id, status, _ = run_job(in_process, "refit", force=True)
+    reference_id, status, _ = run_job(in_process, "refit", refit_unchanged=True)
     assert status == "succeeded"
     reference = fit_records(in_process)
     reference_job = job_row(in_process, reference_id)
@@ -115,7 +115,7 @@ def test_cluster_refit_and_reprice_equal_the_in_process_jobs(
 
     # 40 products in partitions of 15: three partitions over two worker processes.
     on_cluster = cluster_settings(db, job_partition_size=15, **small)
-    job_id, status, runner = run_job(on_cluster, "refit", force=True)
+    job_id, status, runner = run_job(on_cluster, "refit", refit_unchanged=True)
     assert status == "succeeded", job_row(on_cluster, job_id)["message"]
     assert {r.number for r in runner.cluster_reports} == {0, 1, 2}
     assert len({r.worker for r in runner.cluster_reports}) >= 1
@@ -180,7 +180,7 @@ def test_a_worker_killed_mid_partition_loses_nothing(db: Database) -> None:
     killer = threading.Thread(target=kill_a_worker)
     killer.start()
     try:
-        job_id, status, _ = run_job(settings, "refit", force=True)
+        job_id, status, _ = run_job(settings, "refit", refit_unchanged=True)
     finally:
         stop.set()
         killer.join()
@@ -254,7 +254,7 @@ def test_a_partition_run_again_resumes_and_a_second_run_stops(db: Database) -> N
     settings = db.settings.model_copy(update={"job_batch_size": 4})
     engine = make_engine(settings)
     with session_scope(make_session_factory(engine, writer=True)) as session:
-        job = jobs.create(session, kind="refit", scope="all", force=True)
+        job = jobs.create(session, kind="refit", scope="all", refit_unchanged=True)
         ranges = partitions.plan(session, job=job, size=100)
         partitions.create(session, job_id=job.id, ranges=ranges)
         job_id = job.id
@@ -285,7 +285,7 @@ def test_two_jobs_over_the_same_products_take_turns(db: Database) -> None:
     tasks = []
     with session_scope(make_session_factory(engine, writer=True)) as session:
         for scope in ("all", {"family": "green"}):
-            job = jobs.create(session, kind="refit", scope=scope, force=True)
+            job = jobs.create(session, kind="refit", scope=scope, refit_unchanged=True)
             [(first, last, _)] = partitions.plan(session, job=job, size=100)
             partitions.create(session, job_id=job.id, ranges=[(first, last, 0)])
             tasks.append(

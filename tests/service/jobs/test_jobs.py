@@ -22,7 +22,7 @@ from service.jobs.worker import JobRunner
 from tests.plugins.storage import Database, row_count
 
 pytestmark = pytest.mark.storage
-TRAPS = {"TEA-001": "expected_sign", "TEA-009": "price_variation"}
+TRAPS = {"TEA-001": "wrong_sign", "TEA-009": "price_variation"}
 SHORT_HISTORY = "TEA-017"
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -91,7 +91,7 @@ def test_incremental_refit_skips_untouched_products(
     [second] = run_queued(db.settings)
     job = shop.get(f"/v1/jobs/{second}", headers=headers).json()
     # only the product without any fit (too little data) is tried again
-    assert job["counts"]["skipped"] == 39 and job["counts"]["failed"] == 1
+    assert job["counts"]["unchanged"] == 39 and job["counts"]["failed"] == 1
 
     new_week = {
         "observations": [
@@ -107,21 +107,26 @@ def test_incremental_refit_skips_untouched_products(
     shop.post("/v1/jobs", json={"kind": "refit", "scope": "all"}, headers=headers)
     [third] = run_queued(db.settings)
     job = shop.get(f"/v1/jobs/{third}", headers=headers).json()
-    assert job["counts"]["skipped"] == 38
+    assert job["counts"]["unchanged"] == 38
     assert job["counts"]["activated"] + job["counts"]["rejected"] == 1
 
-    shop.post("/v1/jobs", json={"kind": "refit", "scope": "all", "force": True}, headers=headers)
-    [forced] = run_queued(db.settings)
-    assert shop.get(f"/v1/jobs/{forced}", headers=headers).json()["counts"]["skipped"] == 0
+    shop.post(
+        "/v1/jobs", json={"kind": "refit", "scope": "all", "refit_unchanged": True}, headers=headers
+    )
+    [again] = run_queued(db.settings)
+    assert shop.get(f"/v1/jobs/{again}", headers=headers).json()["counts"]["unchanged"] == 0
 
 
 def test_jobs_that_would_do_nothing_are_refused(shop: TestClient, headers: dict[str, str]) -> None:
-    # A spec without force would leave every unchanged history alone and never be used;
+    # A spec without refit_unchanged would leave every unchanged history alone and never be used;
     # a family without products has nothing to work on.
     spec_only = shop.post(
         "/v1/jobs", json={"kind": "refit", "spec": {"form": "log-log"}}, headers=headers
     )
-    assert spec_only.status_code == 422 and "needs force" in spec_only.json()["detail"]
+    assert spec_only.status_code == 422 and "needs refit_unchanged" in spec_only.json()["detail"]
+    # The switch's retired name is no alias: it is refused, naming the field.
+    old = shop.post("/v1/jobs", json={"kind": "refit", "force": True}, headers=headers)
+    assert old.status_code == 422 and [e["field"] for e in old.json()["errors"]] == ["force"]
     nobody = shop.post(
         "/v1/jobs", json={"kind": "reprice", "scope": {"family": "coffee"}}, headers=headers
     )
@@ -137,7 +142,7 @@ def test_scopes(shop: TestClient, headers: dict[str, str], db: Database) -> None
             "kind": "refit",
             "scope": {"skus": ["TEA-004", "NOPE-9"]},
             "spec": {"form": "log-log"},
-            "force": True,
+            "refit_unchanged": True,
         },
         headers=headers,
     )
@@ -220,7 +225,7 @@ def test_a_killed_job_keeps_every_active_fit_and_is_failed_at_restart(
     db: Database, headers: dict[str, str], slow_batches: dict[str, str]
 ) -> None:
     demo.load(db.settings, seed=7)
-    run_refit_cli = [sys.executable, "-m", "service.cli", "refit", "--all", "--force"]
+    run_refit_cli = [sys.executable, "-m", "service.cli", "refit", "--all", "--refit-unchanged"]
     subprocess.run(
         run_refit_cli, env=slow_batches, cwd=ROOT, check=False, capture_output=True, timeout=300
     )
@@ -291,7 +296,7 @@ def test_reprice_job_recommends_once_per_active_product(
     job = shop.get(f"/v1/jobs/{job_id}", headers=headers).json()
     assert job["status"] == "succeeded"
     assert job["counts"]["recommended"] + job["counts"]["failed"] == len(active)
-    assert job["counts"]["skipped"] == 40 - len(active)
+    assert job["counts"]["no_active_fit"] == 40 - len(active)
     latest = shop.get("/v1/recommendations", params={"limit": 500}, headers=headers).json()["items"]
     assert len(latest) == job["counts"]["recommended"] >= len(active) - 2
     assert {r["sku"] for r in latest} <= active

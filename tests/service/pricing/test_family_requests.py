@@ -123,9 +123,9 @@ def test_pricing_switches_are_true_or_false_only(
     # Found by scripts/fuzz (on jobs): a number or text was taken for a boolean.
     _fitted(client, headers, "TEA-F1")
     for path, body in (
-        ("/v1/products/TEA-F1/optimal-price", {"force": flag}),
+        ("/v1/products/TEA-F1/optimal-price", {"allow_wrong_sign": flag}),
         ("/v1/products/TEA-F1/optimal-price", {"constraints": {"allow_extrapolation": flag}}),
-        ("/v1/families/green/optimal-prices", {"force": flag}),
+        ("/v1/families/green/optimal-prices", {"allow_wrong_sign": flag}),
     ):
         answer = client.post(path, json=body, headers=headers)
         assert answer.status_code == 422, (path, body, answer.text)

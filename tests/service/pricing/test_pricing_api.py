@@ -216,7 +216,7 @@ def test_infeasible_rules_are_422_naming_the_conflict(
     assert both.status_code == 422
 
 
-def test_wrong_sign_is_refused_unless_forced(
+def test_wrong_sign_is_refused_unless_allowed(
     client: TestClient, headers: dict[str, str], db: Database
 ) -> None:
     demo.load(db.settings, seed=7)
@@ -238,9 +238,14 @@ def test_wrong_sign_is_refused_unless_forced(
     engine.dispose()
     refused = client.post("/v1/products/TEA-001/optimal-price", json={}, headers=headers)
     assert refused.status_code == 409
-    assert "force" in refused.json()["detail"]
-    forced = recommend(client, headers, "TEA-001", force=True)
-    assert "own_price_wrong_sign_forced" in [w["code"] for w in forced["warnings"]]
+    assert "allow_wrong_sign" in refused.json()["detail"]
+    allowed = recommend(client, headers, "TEA-001", allow_wrong_sign=True)
+    assert "wrong_sign_allowed" in [w["code"] for w in allowed["warnings"]]
+    # The switch's retired name is no alias: it is refused, naming the field.
+    for path in ("/v1/products/TEA-001/optimal-price", "/v1/families/green/optimal-prices"):
+        old = client.post(path, json={"force": True}, headers=headers)
+        assert old.status_code == 422, old.text
+        assert [e["field"] for e in old.json()["errors"]] == ["force"]
 
 
 def test_uncertainty_curve_and_scenario(

@@ -581,7 +581,7 @@ def test_the_product_page_explains_the_model_and_its_history(shop: Shop) -> None
     assert f"{stored['recommended']['price']:,.2f} EUR" in html
     rejected = client.get("/ui/products/TEA-001").text
     assert "rejected by the quality gates" in rejected and "✗ failed" in rejected
-    assert "price effect negative" in rejected and "expected_sign" not in rejected
+    assert "no wrong sign" in rejected and "wrong_sign" not in rejected
     empty = client.get(f"/ui/products/{NO_HISTORY}")
     assert empty.status_code == 200 and "No fit has been made" in empty.text
     missing = client.get("/ui/products/TEA-999")
@@ -624,7 +624,7 @@ def test_any_product_name_draws_without_warnings_into_well_formed_svg(shop: Shop
 
 # Codes a person should never read on a page: quality gates, constraints, warnings, optima.
 SCREEN_CODES = (
-    "expected_sign",
+    "wrong_sign",
     "price_variation",
     "enough_observations",
     "holdout_not_worse",
@@ -641,7 +641,8 @@ SCREEN_CODES = (
     "standard_errors",
     "own_price_not_significant",
     "price_outside_observed_range",
-    "draws_wrong_sign",
+    "wrong_sign_draws",
+    "wrong_sign_allowed",
 )
 
 
