@@ -13,7 +13,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Protocol, cast
 
-from sqlalchemy import Table, and_, func, insert, select
+from sqlalchemy import Table, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -31,9 +31,8 @@ from service.core.errors import (
     NotFound,
     library_errors,
 )
-from service.core.tables import PriceEntryRow, ProductRow, RecommendationRow, as_utc, utcnow
+from service.core.tables import ProductRow, RecommendationRow, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
-from service.pricing import price_record, review
 from service.pricing.money import round_recommendation
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 
@@ -148,20 +147,9 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
         sku=product.sku,
         fit_id=fit_id,
         objective=body.objective,
-        request=body.model_dump(exclude={"store"}),
-        result=with_prior_price(session, product.id, result.to_dict()),
+        request=body.model_dump(),
+        result=result.to_dict(),
     )
-
-
-def with_prior_price(session: Session, product_id: int, result: dict[str, Any]) -> dict[str, Any]:
-    """A result that lowers the price carries the prior price: the lowest price live in
-    the 30 days before now in the product's price record (see
-    :func:`~service.pricing.price_record.prior_lowest_price`)."""
-    current = (result.get("current") or {}).get("price")
-    recommended = (result.get("recommended") or {}).get("price")
-    lowers = current is not None and recommended is not None and recommended < current
-    prior = price_record.prior_lowest_price(session, product_id, utcnow()) if lowers else None
-    return {**result, "prior_price": prior}
 
 
 _RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
@@ -202,28 +190,10 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
         raise NotFound(
             "the product or its fit was deleted while the price was worked out"
         ) from None
-    approved = review.after_store(
-        session,
-        [(row_id, p.product_id, p.sku, p.result) for row_id, p in zip(ids, priced, strict=True)],
-    )
-    newest = {p.product_id: row_id for row_id, p in zip(ids, priced, strict=True)}
-    answers = []
-    for row_id, p in zip(ids, priced, strict=True):
-        decided = approved.get(row_id)
-        state = "proposed" if newest[p.product_id] == row_id else "superseded"
-        fields: dict[str, Any] = {"state": state}
-        if decided is not None:
-            fields = {
-                "state": decided.state,
-                "decided_at": now if decided.entry is None else decided.entry.created_at,
-                "policy_id": None if decided.entry is None else decided.entry.policy_id,
-                "approved_price": decided.price,
-                "effective_from": None if decided.entry is None else decided.entry.effective_from,
-            }
-        answers.append(
-            answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now) | fields
-        )
-    return answers
+    return [
+        answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now)
+        for row_id, p in zip(ids, priced, strict=True)
+    ]
 
 
 def _check_one_currency(family: str, currencies: dict[str, str]) -> None:
@@ -305,7 +275,7 @@ def recommend_family(
         )
     rounded = tuple(round_recommendation(r, by_sku[r.sku].currency) for r in result.products)
     data = replace(result, products=rounded).to_dict()
-    request = {"family": family, **body.model_dump(exclude={"store"})}
+    request = {"family": family, **body.model_dump()}
     priced = [
         Priced(
             product_id=by_sku[item["sku"]].id,
@@ -313,7 +283,7 @@ def recommend_family(
             fit_id=fit_ids[item["sku"]],
             objective=body.objective,
             request=request,
-            result=with_prior_price(session, by_sku[item["sku"]].id, item),
+            result=item,
         )
         for item in data["products"]
     ]
@@ -335,29 +305,18 @@ def latest_page(
     since: dt.datetime | None,
     limit: int,
     after_sku: str | None,
-    state: str | None = "approved",
-) -> tuple[list[tuple[RecommendationRow, str, dt.datetime | None]], bool]:
-    """The newest recommendation of each product in ``state`` (None: in any state), by
-    sku, with when its price goes live if it was approved."""
+) -> tuple[list[tuple[RecommendationRow, str]], bool]:
+    """The newest recommendation of each product, by sku."""
     newest = select(func.max(RecommendationRow.id).label("id")).group_by(
         RecommendationRow.product_id
     )
-    if state is not None:
-        newest = newest.where(RecommendationRow.state == state)
     if since is not None:
         newest = newest.where(RecommendationRow.created_at >= since)
     ids = newest.subquery()
     query = (
-        select(RecommendationRow, ProductRow.sku, PriceEntryRow.effective_from)
+        select(RecommendationRow, ProductRow.sku)
         .join(ids, ids.c.id == RecommendationRow.id)
         .join(ProductRow, ProductRow.id == RecommendationRow.product_id)
-        .outerjoin(
-            PriceEntryRow,
-            and_(
-                PriceEntryRow.recommendation_id == RecommendationRow.id,
-                PriceEntryRow.product_id == RecommendationRow.product_id,
-            ),
-        )
         .order_by(ProductRow.sku)
         .limit(limit + 1)
     )
@@ -365,7 +324,5 @@ def latest_page(
         query = query.where(ProductRow.family == family)
     if after_sku is not None:
         query = query.where(ProductRow.sku > after_sku)
-    rows: list[tuple[RecommendationRow, str, dt.datetime | None]] = [
-        (r, s, None if e is None else as_utc(e)) for r, s, e in session.execute(query).all()
-    ]
+    rows = [(r, s) for r, s in session.execute(query).all()]
     return rows[:limit], len(rows) > limit
