@@ -16,6 +16,7 @@ from models.errors import (
     UnboundedObjectiveError,
 )
 from models.guards import price_range_warning
+from models.money import MoneyText, plain_money
 from models.pricing import notes
 from models.pricing.constraints import Interval, PriceConstraints, grid_prices
 from models.pricing.curve import DemandCurve, scenario_values
@@ -201,6 +202,7 @@ def optimal_price(
     seed: int = 0,
     curve_points: int = 0,
     allow_wrong_sign: bool = False,
+    money: MoneyText = plain_money,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
 
@@ -229,6 +231,8 @@ def optimal_price(
         0, or 50-200 plotting points of price, units, revenue and profit.
     allow_wrong_sign : bool
         Optimise even when the own-price effect has the wrong sign (is not negative).
+    money : callable
+        Writes an amount of money in the warnings (default: :func:`~models.money.plain_money`).
 
     Returns
     -------
@@ -311,13 +315,13 @@ def optimal_price(
     if bound_note is not None:
         warnings.append(bound_note)
     if unit_cost is not None and math.isfinite(iv.high) and unit_cost >= iv.high:
-        warnings.append(notes.cost_above(unit_cost, iv.high, objective))
-    outside = price_range_warning(fit, price)
+        warnings.append(notes.cost_above(unit_cost, iv.high, objective, money))
+    outside = price_range_warning(fit, price, money)
     if outside is not None:
         warnings.append(outside)
     recommended = price_point(curve, price, unit_cost)
     if recommended.units <= 0.0:
-        warnings.append(notes.no_demand(price))
+        warnings.append(notes.no_demand(price, money))
 
     uncertainty = None
     if uncertainty_draws:
