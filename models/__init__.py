@@ -15,6 +15,7 @@ detail. The surface, by task:
   :data:`VIF_LIMIT`, :data:`WEAK_INSTRUMENT_F`);
 * reading a fit: :func:`elasticities`, :func:`predict`, :func:`price_range_warning`,
   :func:`fitted_units`, :func:`fitted_periods`;
+* learning: :func:`plan_price_test` (a price test and what it should teach and cost);
 * pricing: :func:`optimal_price`, :func:`optimal_family_prices`,
   :class:`PriceConstraints`, :class:`DemandCurve` and the recommendation records;
 * errors: every exception of the library (:mod:`models.errors`);
@@ -53,6 +54,7 @@ from models.history import History
 from models.normal_means import NormalMeans, normal_means
 from models.pooling import pool_family
 from models.predict import Prediction, predict
+from models.price_plans import PriceTestPlan, plan_price_test
 from models.pricing import (
     CurvePoint,
     DemandCurve,
@@ -118,6 +120,7 @@ __all__ = [
     "PriceConstraints",
     "PricePoint",
     "PriceRecommendation",
+    "PriceTestPlan",
     "PriceUncertainty",
     "PricingInputError",
     "Quality",
@@ -144,6 +147,7 @@ __all__ = [
     "normal_means",
     "optimal_family_prices",
     "optimal_price",
+    "plan_price_test",
     "pool_family",
     "predict",
     "price_range_warning",

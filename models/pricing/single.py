@@ -16,7 +16,6 @@ from models.errors import (
     UnboundedObjectiveError,
 )
 from models.guards import price_range_warning
-from models.money import MoneyText, plain_money
 from models.pricing import notes
 from models.pricing.constraints import Interval, PriceConstraints, grid_prices
 from models.pricing.curve import DemandCurve, scenario_values
@@ -202,7 +201,6 @@ def optimal_price(
     seed: int = 0,
     curve_points: int = 0,
     allow_wrong_sign: bool = False,
-    money: MoneyText = plain_money,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
 
@@ -231,8 +229,6 @@ def optimal_price(
         0, or 50-200 plotting points of price, units, revenue and profit.
     allow_wrong_sign : bool
         Optimise even when the own-price effect has the wrong sign (is not negative).
-    money : callable
-        Writes an amount of money in the warnings (default: :func:`~models.money.plain_money`).
 
     Returns
     -------
@@ -315,13 +311,13 @@ def optimal_price(
     if bound_note is not None:
         warnings.append(bound_note)
     if unit_cost is not None and math.isfinite(iv.high) and unit_cost >= iv.high:
-        warnings.append(notes.cost_above(unit_cost, iv.high, objective, money))
-    outside = price_range_warning(fit, price, money)
+        warnings.append(notes.cost_above(unit_cost, iv.high, objective))
+    outside = price_range_warning(fit, price)
     if outside is not None:
         warnings.append(outside)
     recommended = price_point(curve, price, unit_cost)
     if recommended.units <= 0.0:
-        warnings.append(notes.no_demand(price, money))
+        warnings.append(notes.no_demand(price))
 
     uncertainty = None
     if uncertainty_draws:

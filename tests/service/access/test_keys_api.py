@@ -46,6 +46,13 @@ ROUTES = [
     ("GET", "/v1/products/{sku}/demand-model", "/v1/products/TEA-001/demand-model", None, "read"),
     ("GET", "/v1/products/{sku}/elasticities", "/v1/products/TEA-001/elasticities", None, "read"),
     ("POST", "/v1/products/{sku}/predict", "/v1/products/TEA-001/predict", {"price": 1.0}, "read"),
+    (
+        "POST",
+        "/v1/products/{sku}/price-tests",
+        "/v1/products/TEA-001/price-tests",
+        {},
+        "read",
+    ),
     ("POST", "/v1/products/{sku}/optimal-price", "/v1/products/TEA-001/optimal-price", {}, "read"),
     (
         "POST",
