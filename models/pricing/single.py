@@ -16,9 +16,11 @@ from models.errors import (
     UnboundedObjectiveError,
 )
 from models.guards import price_range_warning
+from models.money import MoneyText, plain_money
 from models.pricing import notes
 from models.pricing.constraints import Interval, PriceConstraints, grid_prices
 from models.pricing.curve import DemandCurve, scenario_values
+from models.pricing.decide import NO_HARM_CHECK, check_decision, choose
 from models.pricing.inputs import (
     check_curve_points,
     check_draws,
@@ -152,7 +154,12 @@ def _unbounded_warning(
 
 
 def _message(status: int, binding: list[str], grid: str | None, n_grid: int) -> str:
-    if status == STATUS_UNBOUNDED:
+    if binding == [NO_HARM_CHECK]:
+        text = (
+            "The current price is kept: moving did not win clearly enough over the "
+            "estimate's distribution (do-no-harm check)."
+        )
+    elif status == STATUS_UNBOUNDED:
         text = f"No finite optimum; the price sits on {', '.join(binding)}."
     elif status == STATUS_CONSTRAINED:
         text = f"Optimum held by a constraint: {', '.join(binding)}."
@@ -201,6 +208,9 @@ def optimal_price(
     seed: int = 0,
     curve_points: int = 0,
     allow_wrong_sign: bool = False,
+    money: MoneyText = plain_money,
+    decision: str = "point",
+    no_harm_check: bool = False,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
 
@@ -229,6 +239,16 @@ def optimal_price(
         0, or 50-200 plotting points of price, units, revenue and profit.
     allow_wrong_sign : bool
         Optimise even when the own-price effect has the wrong sign (is not negative).
+    money : callable
+        Writes an amount of money in the warnings (default: :func:`~models.money.plain_money`).
+    decision : {"point", "expected", "cautious"}
+        How the price is chosen from the estimate: ``point`` takes the fitted coefficients
+        as exact; ``expected`` maximises the mean profit (or revenue) over the estimate's
+        normal distribution; ``cautious`` maximises its 10th percentile. See
+        :mod:`models.pricing.decide`; every rule reports the value of knowing.
+    no_harm_check : bool
+        Keep the current price unless the chosen one wins on average and in at least 80%
+        of the estimate's distribution (needs a current price the constraints allow).
 
     Returns
     -------
@@ -265,6 +285,7 @@ def optimal_price(
     current_price = check_value("current_price", current_price, positive=True)
     check_draws(uncertainty_draws)
     check_curve_points(curve_points)
+    check_decision(decision)
     constraints = constraints or PriceConstraints()
     if objective == "profit" and unit_cost is None:
         raise MissingUnitCostError([fit.sku], "objective=profit")
@@ -287,6 +308,7 @@ def optimal_price(
 
     grid_name = constraints.grid_name
     price, nit, method = best.price, best.nit, "continuous"
+    allowed: FloatArray | None = None
     if grid_name is not None:
         allowed = grid_prices(constraints, iv.low, iv.high)
         assert allowed is not None
@@ -299,25 +321,43 @@ def optimal_price(
             )
         price, nit = _pick_grid(curve, cost, allowed, best.price)
         method = "grid"
+    point_price = price
+    price, decided, decision_notes = choose(
+        fit,
+        values,
+        iv,
+        rule=decision,
+        no_harm_check=no_harm_check,
+        cost=cost,
+        current_price=current_price,
+        reference=reference,
+        allowed=allowed,
+        point_price=point_price,
+    )
 
     low, high = _binding_sides(curve, cost, best.price, iv)
+    if price != point_price:  # the rule moved the price: a bound binds only if it is on it
+        low = iv.sources("low") if at_bound(price, iv.low) else []
+        high = iv.sources("high") if at_bound(price, iv.high) else []
     binding = low + high
-    if grid_name is not None and not at_bound(price, best.price):
+    if decided is not None and decided.held_current:
+        binding = [NO_HARM_CHECK]
+    if grid_name is not None and not at_bound(point_price, best.price) and price == point_price:
         binding.append(grid_name)
-    warnings: list[FitWarning] = []
+    warnings: list[FitWarning] = list(decision_notes)
     if wrong_signed:
         warnings.append(notes.wrong_sign_allowed(float(curve.coef)))
     bound_note = _unbounded_warning(curve, free, objective, price, low, high)
     if bound_note is not None:
         warnings.append(bound_note)
     if unit_cost is not None and math.isfinite(iv.high) and unit_cost >= iv.high:
-        warnings.append(notes.cost_above(unit_cost, iv.high, objective))
-    outside = price_range_warning(fit, price)
+        warnings.append(notes.cost_above(unit_cost, iv.high, objective, money))
+    outside = price_range_warning(fit, price, money)
     if outside is not None:
         warnings.append(outside)
     recommended = price_point(curve, price, unit_cost)
     if recommended.units <= 0.0:
-        warnings.append(notes.no_demand(price))
+        warnings.append(notes.no_demand(price, money))
 
     uncertainty = None
     if uncertainty_draws:
@@ -363,4 +403,5 @@ def optimal_price(
         search=SEARCH_WORDS[method],
         search_steps=nit,
         summary=_message(status, binding, grid_name, nit),
+        decision=decided,
     )
