@@ -32,7 +32,7 @@ QUEUED, RUNNING, SUCCEEDED, FAILED, CANCELLED = (
 )
 FINISHED = (SUCCEEDED, FAILED, CANCELLED)
 MAX_STORED_ERRORS = 1000
-COUNT_NAMES = ("activated", "rejected", "failed", "unchanged")
+COUNT_NAMES = ("activated", "rejected", "awaiting_review", "failed", "unchanged")
 # Counts a reprice job adds to them.
 REPRICE_COUNT_NAMES = ("recommended", "no_active_fit")
 

@@ -63,6 +63,11 @@ class JobProgress(BaseModel):
 class JobCounts(BaseModel):
     activated: int = 0
     rejected: int = 0
+    awaiting_review: int = Field(
+        default=0,
+        description="refit: new fits the quality gates left to a person (the spec identifies "
+        "the price effect differently from the active fit's)",
+    )
     failed: int = 0
     unchanged: int = Field(
         default=0,

@@ -205,3 +205,26 @@ def test_same_identification_still_compares_holdout(
     ).json()
     # The same instruments: the hold-out gate decides, as before.
     assert again["status"] == "active" and again["gates"]["undecided"] == []
+
+
+def test_a_refit_job_counts_fits_awaiting_review(market: TestClient, db: Database) -> None:
+    from service.core.db import make_engine, make_session_factory, session_scope
+    from service.jobs import queue as jobs
+    from service.jobs.worker import JobRunner
+
+    headers = {"Authorization": f"Bearer {make_key(db.settings, 'write', 'read')}"}
+    market.post(f"/v1/products/{SKU}/fits", json={"spec": LEAST_SQUARES}, headers=headers)
+    engine = make_engine(db.settings)
+    with session_scope(make_session_factory(engine, writer=True)) as session:
+        job_id = jobs.create(
+            session, kind="refit", scope={"skus": [SKU]}, refit_unchanged=True, spec=INSTRUMENTED
+        ).id
+    runner = JobRunner(engine, db.settings)
+    runner.claim(job_id)
+    runner.run(job_id)
+    engine.dispose()
+    job = market.get(f"/v1/jobs/{job_id}", headers=headers).json()
+    assert job["status"] == "succeeded", job
+    assert job["counts"]["awaiting_review"] == 1 and job["counts"]["activated"] == 0
+    versions = market.get(f"/v1/products/{SKU}/fits", headers=headers).json()["items"]
+    assert [v["status"] for v in versions] == ["awaiting_review", "active"]
