@@ -31,7 +31,7 @@ from models.result import (
     FitFailure,
     Quality,
 )
-from models.select import choose_form, score_forms
+from models.select import score_forms_by_fold, steady_form
 from models.spec import LOG_RESPONSE_FORMS, ModelSpec
 
 
@@ -129,7 +129,11 @@ def _assemble(
 
 
 def fit_demand(
-    history: History, spec: ModelSpec, *, holdout_periods: int | None = None
+    history: History,
+    spec: ModelSpec,
+    *,
+    holdout_periods: int | None = None,
+    previous_form: str | None = None,
 ) -> DemandFit:
     """Fit one product's demand model.
 
@@ -139,10 +143,14 @@ def fit_demand(
         The product's sales history.
     spec : ModelSpec
         What to fit. ``form="auto"`` scores the candidate forms by rolling-origin
-        WAPE first and fits the best.
+        WAPE first and fits the best, unless forms are within the noise of that score:
+        then the steady choice of :func:`models.select.steady_form` decides.
     holdout_periods : int, optional
         Last periods left out to compute ``quality.holdout_wape``; default
         ``min(13, rows // 4)`` when the rest still suffices, else no holdout.
+    previous_form : str, optional
+        Under ``auto``: the form of the product's earlier fit, kept when the scores
+        cannot tell it from the best.
 
     Returns
     -------
@@ -172,11 +180,11 @@ def fit_demand(
     scores: dict[str, float | None] = {}
     form = spec.form
     if form == "auto":
-        scored = score_forms([history], spec)[0]
+        scored = score_forms_by_fold([history], spec)[0]
         if isinstance(scored, Exception):
             raise scored
-        scores = scored
-        form = choose_form(scores)
+        scores = scored.overall
+        form = steady_form(scored, previous_form)
     return _fit_form(history, spec, form, holdout_periods=holdout_periods, scores=scores)
 
 
@@ -211,6 +219,7 @@ def fit_many(
     *,
     holdout_periods: int | None = None,
     families: Mapping[str, str] | None = None,
+    previous_forms: Mapping[str, str] | None = None,
 ) -> list[DemandFit | FitFailure]:
     """Fit many products that share a spec; one result per history, in order.
 
@@ -232,6 +241,8 @@ def fit_many(
         As in :func:`fit_demand`.
     families : mapping of sku to family, optional
         Used when ``spec.pooling == "family"``; without it the whole batch is one family.
+    previous_forms : mapping of sku to form, optional
+        Under ``auto``: each product's earlier form (see :func:`fit_demand`).
 
     Examples
     --------
@@ -244,12 +255,13 @@ def fit_many(
     forms = [spec.form] * n
     scores: list[dict[str, float | None]] = [{} for _ in range(n)]
     if spec.form == "auto":
-        for i, scored in enumerate(score_forms(histories, spec)):
+        previous = previous_forms or {}
+        for i, scored in enumerate(score_forms_by_fold(histories, spec)):
             if isinstance(scored, Exception):
                 results[i] = _failure(histories[i].sku, scored)
             else:
-                scores[i] = scored
-                forms[i] = choose_form(scored)
+                scores[i] = scored.overall
+                forms[i] = steady_form(scored, previous.get(histories[i].sku))
 
     by_form: dict[str, list[int]] = defaultdict(list)
     for i in range(n):

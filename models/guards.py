@@ -2,13 +2,17 @@
 
 from __future__ import annotations
 
+from models.money import MoneyText, plain_money
 from models.result import DemandFit, FitWarning
 
 EXTRAPOLATION: str = "price_outside_observed_range"
 
 
-def price_range_warning(fit: DemandFit, price: float) -> FitWarning | None:
-    """A warning when ``price`` lies outside the prices the fit has seen.
+def price_range_warning(
+    fit: DemandFit, price: float, money: MoneyText = plain_money
+) -> FitWarning | None:
+    """A warning when ``price`` lies outside the prices the fit has seen (amounts written
+    by ``money``).
 
     A regression says little about prices a product was never sold at, so every
     figure computed there is an extrapolation and should say so.
@@ -30,6 +34,6 @@ def price_range_warning(fit: DemandFit, price: float) -> FitWarning | None:
     gap = (price / high - 1.0) if price > high else (1.0 - price / low)
     return FitWarning(
         EXTRAPOLATION,
-        f"price {price:g} is {gap:.0%} {side} price observed in the fitted periods "
-        f"({low:g} to {high:g}); the figures there are extrapolations",
+        f"price {money(price)} is {gap:.0%} {side} price observed in the fitted periods "
+        f"({money(low)} to {money(high)}); the figures there are extrapolations",
     )

@@ -16,6 +16,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import replace
 from typing import Any
 
+from models.money import MoneyText, plain_money
 from models.pricing import notes
 from models.pricing.constraints import PriceConstraints
 from models.pricing.family_report import family_total, product_recommendation
@@ -47,6 +48,7 @@ def optimal_family_prices(
     uncertainty_draws: int = 0,
     seed: int = 0,
     allow_wrong_sign: bool = False,
+    money: MoneyText = plain_money,
 ) -> FamilyRecommendation:
     """Joint prices for a family that maximise total expected profit or revenue.
 
@@ -73,6 +75,8 @@ def optimal_family_prices(
         Coefficient draws per fit (independent across fits), each re-optimised jointly.
     allow_wrong_sign : bool
         Optimise even when an own-price effect has the wrong sign (is not negative).
+    money : callable
+        Writes an amount of money in the warnings (default: :func:`~models.money.plain_money`).
 
     Returns
     -------
@@ -125,7 +129,7 @@ def optimal_family_prices(
         dict.fromkeys(n for n, v in zip(problem.names(), values, strict=True) if v <= 1e-7)
     )
     products = [
-        product_recommendation(setup, i, continuous, recommended, active, method, nit)
+        product_recommendation(setup, i, continuous, recommended, active, method, nit, money)
         for i in range(len(setup.products))
     ]
     warnings: list[FitWarning] = []

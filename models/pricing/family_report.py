@@ -11,6 +11,7 @@ from scipy import optimize
 
 from models._typing import FloatArray
 from models.guards import price_range_warning
+from models.money import MoneyText, plain_money
 from models.pricing import notes
 from models.pricing.family_setup import FamilySetup
 from models.pricing.joint_draws import DrawFigures
@@ -121,8 +122,10 @@ def product_recommendation(
     active: list[str],
     method: str,
     nit: int,
+    money: MoneyText = plain_money,
 ) -> PriceRecommendation:
-    """Product ``i``'s recommendation: figures, binding constraints, warnings and status."""
+    """Product ``i``'s recommendation: figures, binding constraints, warnings (amounts
+    written by ``money``) and status."""
     p = setup.products[i]
     demand = setup.demand
     binding, low, high = _binding(setup, i, continuous, recommended, active)
@@ -147,13 +150,13 @@ def product_recommendation(
     if bound_note is not None:
         warnings.append(bound_note)
     if p.unit_cost is not None and math.isfinite(p.box.high) and p.unit_cost >= p.box.high:
-        warnings.append(notes.cost_above(p.unit_cost, p.box.high, setup.objective))
-    outside = price_range_warning(p.fit, price)
+        warnings.append(notes.cost_above(p.unit_cost, p.box.high, setup.objective, money))
+    outside = price_range_warning(p.fit, price, money)
     if outside is not None:
         warnings.append(outside)
     point = _point(price, float(demand.units(recommended)[i]), p.unit_cost)
     if point.units <= 0.0:
-        warnings.append(notes.no_demand(price))
+        warnings.append(notes.no_demand(price, money))
     current = None
     if not setup.no_current and p.current is not None:
         current = _point(p.current, float(demand.units(setup.current)[i]), p.unit_cost)

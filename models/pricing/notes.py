@@ -1,4 +1,8 @@
-"""Warning codes of a price recommendation, each with a sentence for people."""
+"""Warning codes of a price recommendation, each with a sentence for people.
+
+Amounts of money in the sentences are written by a :data:`~models.money.MoneyText`
+function the caller passes (the currency's minor unit and code in the service).
+"""
 
 from __future__ import annotations
 
@@ -7,6 +11,7 @@ from collections.abc import Sequence
 from typing import Final
 
 from models.guards import EXTRAPOLATION
+from models.money import MoneyText, plain_money
 from models.result import FitWarning
 
 UNBOUNDED_ABOVE: Final = "objective_unbounded_above"
@@ -73,7 +78,14 @@ def unbounded(
     )
 
 
-def cost_above(unit_cost: float, highest: float, objective: str) -> FitWarning:
+def cost_above(
+    unit_cost: float, highest: float, objective: str, money: MoneyText = plain_money
+) -> FitWarning:
+    """The unit cost is above every allowed price.
+
+    >>> cost_above(12.5, 9.99, "profit", lambda v: f"{v:.2f} EUR").message[:54]
+    'Unit cost 12.50 EUR is above every allowed price (at m'
+    """
     tail = (
         "the recommendation is the allowed price that loses least"
         if objective == "profit"
@@ -81,7 +93,8 @@ def cost_above(unit_cost: float, highest: float, objective: str) -> FitWarning:
     )
     return FitWarning(
         COST_ABOVE_PRICES,
-        f"Unit cost {unit_cost:g} is above every allowed price (at most {highest:.6g}): each "
+        f"Unit cost {money(unit_cost)} is above every allowed price (at most "
+        f"{money(highest)}): each "
         f"unit sells at a loss; {tail}.",
     )
 
@@ -95,10 +108,10 @@ def wrong_sign_allowed(coef: float) -> FitWarning:
     )
 
 
-def no_demand(price: float) -> FitWarning:
+def no_demand(price: float, money: MoneyText = plain_money) -> FitWarning:
     return FitWarning(
         NO_DEMAND,
-        f"Expected units are zero at the recommended price {price:.6g}: the fitted linear "
+        f"Expected units are zero at the recommended price {money(price)}: the fitted linear "
         "demand reaches zero inside the allowed prices.",
     )
 

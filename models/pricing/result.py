@@ -66,6 +66,45 @@ class PriceUncertainty:
 
 
 @dataclass(frozen=True)
+class PriceDecision:
+    """How the price was chosen over the estimate's distribution, and what not knowing costs.
+
+    Attributes
+    ----------
+    rule : str
+        ``"point"`` (fitted coefficients taken as exact), ``"expected"`` (best mean
+        objective over the estimate's distribution) or ``"cautious"`` (best low quantile).
+    cautious_level : float or None
+        The quantile the cautious rule maximises (0.1: the figure exceeded in nine of ten
+        outcomes); None for the other rules.
+    expected_objective : float
+        Mean profit (or revenue) at the recommended price over the distribution.
+    value_of_knowing : float
+        Expected profit (or revenue) per period lost because the coefficients are not
+        known exactly: the mean of the best attainable figure minus the figure at the
+        recommended price, over the distribution, within the same allowed prices.
+    expected_gain : float or None
+        Mean gain of the recommended price over the current one (None without a current
+        price); 0 when the current price is kept.
+    chance_of_gain : float or None
+        Share of the distribution in which the recommended price beats the current one.
+    held_current : bool
+        The do-no-harm check kept the current price: the move did not win clearly enough.
+    """
+
+    rule: str
+    cautious_level: float | None
+    expected_objective: float
+    value_of_knowing: float
+    expected_gain: float | None
+    chance_of_gain: float | None
+    held_current: bool
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(clean(vars(self)))
+
+
+@dataclass(frozen=True)
 class CurvePoint:
     """One point of the demand and money curves for plotting (``feasible``: inside the
     allowed interval, not checked against a price grid)."""
@@ -102,6 +141,9 @@ class PriceRecommendation:
         Prices the constraints allow, before the grid (None: no upper limit). In a
         family, the product's own price limits only (units limits, ladder rules and
         the index cap couple the products).
+    decision : PriceDecision or None
+        The decision rule and the value of knowing (None when the fit's covariance is
+        unusable, or in a family).
     uncertainty : PriceUncertainty or None
         In a family, ``profit_interval`` and ``prob_better_than_current`` concern this
         product's own figures at the joint prices (the family's are in the total).
@@ -144,6 +186,7 @@ class PriceRecommendation:
     search: str
     search_steps: int
     summary: str
+    decision: PriceDecision | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe mapping (no NaN or infinity)."""
@@ -170,6 +213,7 @@ class PriceRecommendation:
                 "search": self.search,
                 "search_steps": self.search_steps,
                 "summary": self.summary,
+                "decision": None if self.decision is None else self.decision.to_dict(),
             }
         )
         return out

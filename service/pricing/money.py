@@ -8,6 +8,7 @@ as 17.930000000000003 that no till can charge.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import replace
 from functools import lru_cache
 
@@ -40,6 +41,19 @@ def format_money(value: float, currency: str | None, *, with_code: bool = True) 
     """``1,234.50 EUR``: grouped digits to the minor unit, then the currency's code."""
     text = f"{value:,.{minor_digits(currency)}f}".replace("-", "−")
     return f"{text} {currency.upper()}" if with_code and currency else text
+
+
+def money_text(currency: str | None) -> Callable[[float], str]:
+    """How the library's messages write money for this currency: ``17.93 EUR``.
+
+    >>> money_text("JPY")(1799.6), money_text("EUR")(17.930000000000003)
+    ('1,800 JPY', '17.93 EUR')
+    """
+
+    def write(value: float) -> str:
+        return format_money(value, currency) if math.isfinite(value) else f"{value:g}"
+
+    return write
 
 
 def _step(currency: str | None) -> float:

@@ -33,7 +33,7 @@ from service.core.errors import (
 )
 from service.core.tables import ProductRow, RecommendationRow, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
-from service.pricing.money import round_recommendation
+from service.pricing.money import money_text, round_recommendation
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 
 
@@ -121,6 +121,7 @@ def price_product(
             seed=request.seed,
             curve_points=request.curve_points,
             allow_wrong_sign=request.allow_wrong_sign,
+            money=money_text(product.currency),
         )
     return round_recommendation(found, product.currency)
 
@@ -272,6 +273,7 @@ def recommend_family(
             uncertainty_draws=body.uncertainty_draws,
             seed=body.seed,
             allow_wrong_sign=body.allow_wrong_sign,
+            money=money_text(by_sku[next(iter(fits))].currency),  # a family shares one
         )
     rounded = tuple(round_recommendation(r, by_sku[r.sku].currency) for r in result.products)
     data = replace(result, products=rounded).to_dict()
