@@ -1,0 +1,266 @@
+"""Decision quality: how close recommended prices come to the best price, by rule.
+
+A simulation study in one run. For every product of every generator (see
+``bench/decision_cases.py``: 20 seeds of the demo tea shop, and 10 seeds of a market-share
+shop whose logistic demand none of the offered forms matches), the product is fitted as
+the service would fit it, priced under its min/max prices and the observed-range guard,
+and scored by its TRUE expected profit at the recommended price as a percentage of the
+true best profit within the same allowed prices. A product the service would refuse (fit
+failed, or a quality gate) counts at its current price.
+
+Rules compared, all measured in the same run:
+
+* ``keep current``: no change (the baseline);
+* ``point``: the fitted coefficients taken as exact (the plug-in optimum);
+* ``expected``: maximise mean profit over the estimate's distribution;
+* ``cautious``: maximise the 10th percentile of profit;
+* each of the three with the do-no-harm check (``+ check``).
+
+Two ceilings, which no rule can be expected to reach:
+
+* ``knows elasticity``: the true own-price elasticity at the current price given to the
+  fitted curve, the other coefficients re-estimated given it (their conditional mean);
+* ``knows prior``: the Bayes decision with the generator's true range of elasticities
+  (uniform) as the prior and the fit's likelihood of the own-price coefficient, maximising
+  posterior expected profit: it knows how elasticities are spread, not each product's.
+
+Per generator it prints, for each rule, the median and 10th percentile of the score, the
+share of products at 95% or better and the mean. Usage:
+
+    nice .venv/bin/python bench/decisions.py [--quick] [--seeds N] [--market-seeds M]
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+from collections.abc import Callable, Iterator
+from pathlib import Path
+
+import numpy as np
+from scipy import optimize
+from tqdm import tqdm
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from bench.decision_cases import Case, market_share_cases, tea_shop_cases  # noqa: E402
+from models import PricingInputError, optimal_price  # noqa: E402
+from models._typing import FloatArray  # noqa: E402
+from models.errors import (  # noqa: E402
+    InfeasibleConstraintsError,
+    UnboundedObjectiveError,
+    WrongSignError,
+)
+from models.pricing.constraints import price_limits  # noqa: E402
+from models.pricing.curve import scenario_values  # noqa: E402
+from models.pricing.decide import PredictorLaw, predictor_law  # noqa: E402
+
+RULES: tuple[tuple[str, str, bool], ...] = (
+    ("point", "point", False),
+    ("expected", "expected", False),
+    ("cautious", "cautious", False),
+    ("point + check", "point", True),
+    ("expected + check", "expected", True),
+    ("cautious + check", "cautious", True),
+)
+CEILINGS = ("knows elasticity", "knows prior")
+KEEP = "keep current"
+PRIOR_POINTS = 201
+
+
+def allowed_range(case: Case) -> tuple[float, float]:
+    lower, upper = price_limits(
+        case.constraints,
+        unit_cost=case.unit_cost,
+        current_price=case.current_price,
+        price_range=case.price_range,
+    )
+    return max(b.value for b in lower), min(b.value for b in upper)
+
+
+def argmax_on(score: Callable[[FloatArray], FloatArray], low: float, high: float) -> float:
+    """The maximiser of a smooth function on ``[low, high]``: a fine grid, then Brent."""
+    if not high > low:
+        return low
+    grid = np.linspace(low, high, 801)
+    values = score(grid)
+    i = int(np.argmax(values))
+    a, b = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
+    found = optimize.minimize_scalar(
+        lambda p: -float(score(np.array([p]))[0]),
+        bounds=(a, b),
+        method="bounded",
+        options={"xatol": 1e-9 * high},
+    )
+    return float(found.x) if -float(found.fun) >= float(values[i]) else float(grid[i])
+
+
+def coef_for(law: PredictorLaw, elasticity: float, p0: float) -> float:
+    """The own-price coefficient that gives the fitted curve ``elasticity`` at ``p0``, the
+    offset moving with it as its conditional mean given the coefficient."""
+    if law.log_price:
+        return elasticity
+    if not law.linear:
+        return elasticity / p0
+    kappa = law.cov[0, 1] / law.cov[1, 1]
+    o_hat, b_hat = law.mean
+    return float(elasticity * (o_hat - b_hat * kappa) / (p0 - elasticity * kappa - elasticity * p0))
+
+
+def curve_profit(
+    law: PredictorLaw, coefs: FloatArray, cost: float
+) -> Callable[[FloatArray], FloatArray]:
+    """Mean profit per price over coefficients ``coefs`` (equal weights unless given by rows),
+    with the offset at its conditional mean and conditional variance given each."""
+    kappa = law.cov[0, 1] / law.cov[1, 1]
+    offsets = law.mean[0] + kappa * (coefs - law.mean[1])
+    rest = max(law.cov[0, 0] - law.cov[0, 1] * kappa, 0.0)
+
+    def units(p: FloatArray) -> FloatArray:
+        g = law.g(p)[None, :]
+        eta = offsets[:, None] + coefs[:, None] * g
+        if law.linear:
+            return np.maximum(eta, 0.0)
+        return np.exp(eta + 0.5 * rest)
+
+    return lambda p: (p - cost)[None, :] * units(p)
+
+
+def ceilings(case: Case, law: PredictorLaw, low: float, high: float) -> dict[str, float]:
+    cost, p0 = case.unit_cost, case.current_price
+    if not math.isfinite(law.cov[1, 1]) or law.cov[1, 1] <= 0.0:
+        return {}
+    known = np.array([coef_for(law, case.true_elasticity, p0)])
+    profit_known = curve_profit(law, known, cost)
+    prices: dict[str, float] = {
+        "knows elasticity": argmax_on(lambda p: profit_known(p)[0], low, high)
+    }
+    grid = np.linspace(*case.prior, PRIOR_POINTS)
+    coefs = np.array([coef_for(law, e, p0) for e in grid])
+    sd = math.sqrt(law.cov[1, 1])
+    # Uniform prior on the elasticity, likelihood of the coefficient, Jacobian db/de.
+    log_w = -0.5 * ((coefs - law.mean[1]) / sd) ** 2 + np.log(np.abs(np.gradient(coefs, grid)))
+    weights = np.exp(log_w - log_w.max())
+    weights /= weights.sum()
+    profit_prior = curve_profit(law, coefs, cost)
+    prices["knows prior"] = argmax_on(lambda p: weights @ profit_prior(p), low, high)
+    return prices
+
+
+def price_case(case: Case) -> dict[str, float]:
+    """Each rule's price for one case (the current price where it refuses)."""
+    prices = {KEEP: case.current_price}
+    for name, rule, check in RULES:
+        prices[name] = case.current_price
+        if case.fit is None:
+            continue
+        try:
+            found = optimal_price(
+                case.fit,
+                unit_cost=case.unit_cost,
+                current_price=case.current_price,
+                constraints=case.constraints,
+                decision=rule,
+                no_harm_check=check,
+            )
+        except (
+            WrongSignError,
+            InfeasibleConstraintsError,
+            UnboundedObjectiveError,
+            PricingInputError,
+        ):
+            continue
+        prices[name] = found.recommended.price
+    low, high = allowed_range(case)
+    law = None if case.fit is None else predictor_law(case.fit, scenario_values(case.fit, None))
+    found_ceilings = {} if law is None else ceilings(case, law, low, high)
+    for name in CEILINGS:
+        prices[name] = found_ceilings.get(name, case.current_price)
+    return prices
+
+
+def score_case(case: Case) -> dict[str, float]:
+    """True profit at each rule's price, as a percentage of the best allowed true profit."""
+    low, high = allowed_range(case)
+    best_price = argmax_on(case.true_profit, low, high)
+    best = float(case.true_profit(np.array([best_price]))[0])
+    prices = price_case(case)
+    return {
+        name: 100.0 * float(case.true_profit(np.array([p]))[0]) / best for name, p in prices.items()
+    }
+
+
+def summary(scores: list[dict[str, float]]) -> list[tuple[str, float, float, float, float]]:
+    rows = []
+    for name in (KEEP, *[r[0] for r in RULES], *CEILINGS):
+        values = np.array([s[name] for s in scores])
+        rows.append(
+            (
+                name,
+                float(np.median(values)),
+                float(np.percentile(values, 10)),
+                float(100.0 * np.mean(values >= 95.0)),
+                float(values.mean()),
+            )
+        )
+    return rows
+
+
+def print_table(generator: str, scores: list[dict[str, float]], refused: int) -> None:
+    print(f"\n{generator}: {len(scores)} products ({refused} refused, scored at current price)")
+    print(f"{'rule':<20}{'median %':>10}{'10th pct %':>12}{'>= 95% share':>14}{'mean %':>10}")
+    for name, median, p10, share, mean in summary(scores):
+        print(f"{name:<20}{median:>10.1f}{p10:>12.1f}{share:>13.0f}%{mean:>10.2f}")
+
+
+def run(generators: dict[str, Callable[[], Iterator[Case]]], total: int) -> None:
+    start = time.perf_counter()
+    results: dict[str, list[dict[str, float]]] = {name: [] for name in generators}
+    refused: dict[str, int] = dict.fromkeys(generators, 0)
+    with tqdm(total=total, desc="products", unit="product") as bar:
+        for name, cases in generators.items():
+            for case in cases():
+                results[name].append(score_case(case))
+                refused[name] += case.refused is not None
+                bar.update()
+    for name, scores in results.items():
+        print_table(name, scores, refused[name])
+    print(f"\n{time.perf_counter() - start:.0f} s")
+
+
+def main(argv: list[str] | None = None) -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--seeds", type=int, default=20, help="seeds of the demo tea shop")
+    parser.add_argument(
+        "--market-seeds", type=int, default=10, help="seeds of the market-share shop"
+    )
+    parser.add_argument("--quick", action="store_true", help="one seed of each, few products")
+    args = parser.parse_args(argv)
+    tea, market, per_market = args.seeds, args.market_seeds, 30
+    if args.quick:
+        tea, market, per_market = 1, 1, 6
+
+    def tea_cases() -> Iterator[Case]:
+        for seed in range(1, tea + 1):
+            yield from tea_shop_cases(seed)
+
+    def market_cases() -> Iterator[Case]:
+        for seed in range(1, market + 1):
+            yield from market_share_cases(seed, per_market)
+
+    def near_best_cases() -> Iterator[Case]:
+        for seed in range(1, market + 1):
+            yield from market_share_cases(seed, per_market, near_best=True)
+
+    generators = {
+        "tea-shop": tea_cases,
+        "market-share": market_cases,
+        "market-share, near best": near_best_cases,
+    }
+    run(generators, tea * 40 + 2 * market * per_market)
+
+
+if __name__ == "__main__":
+    main()
