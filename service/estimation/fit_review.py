@@ -119,7 +119,7 @@ def activate_version(
     if previous is not None:
         session.execute(update(FitRow).where(FitRow.id == previous.id).values(status=SUPERSEDED))
         session.flush()
-    action = {SUPERSEDED: "fit.restore"}.get(row.status, "fit.activate")
+    action = {SUPERSEDED: "restore_fit"}.get(row.status, "activate_fit")
     now = utcnow()
     decision = {
         "by_key_id": key_id,

@@ -117,6 +117,7 @@ def activate_fit(
         reason=body.reason if body else None,
         key_id=getattr(request.state, "key_id", None),
     )
+    request.state.audit = "written"  # the activation wrote its own, fuller audit entry
     return fit_out(done.fit, sku)
 
 

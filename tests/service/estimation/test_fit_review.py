@@ -163,10 +163,10 @@ def test_instrumented_fit_waits_for_a_person_who_activates_it(
     assert restored.status_code == 200, restored.json()
     assert _own_elasticity(market, headers) == (ols_id, ols)
     key_id = approver["Authorization"].split("_")[1]
-    entries = [(a, k, d) for a, k, d in _audit(db) if a.startswith("fit.")]
+    entries = [(a, k, d) for a, k, d in _audit(db) if a in ("activate_fit", "restore_fit")]
     assert [(a, k, d["fit_id"], d["replaced_fit_id"]) for a, k, d in entries] == [
-        ("fit.activate", key_id, fit["id"], ols_id),
-        ("fit.restore", key_id, ols_id, fit["id"]),
+        ("activate_fit", key_id, fit["id"], ols_id),
+        ("restore_fit", key_id, ols_id, fit["id"]),
     ]
     assert entries[0][2]["reason"] == reason["reason"]
 
