@@ -15,7 +15,8 @@ detail. The surface, by task:
   :data:`VIF_LIMIT`, :data:`WEAK_INSTRUMENT_F`);
 * reading a fit: :func:`elasticities`, :func:`predict`, :func:`price_range_warning`,
   :func:`fitted_units`, :func:`fitted_periods`;
-* learning: :func:`plan_price_test` (a price test and what it should teach and cost);
+* learning: :func:`plan_price_test` (a price test and what it should teach and cost),
+  :func:`expected_outcomes` and :func:`drift_check` (watching outcomes after a fit);
 * pricing: :func:`optimal_price`, :func:`optimal_family_prices`,
   :class:`PriceConstraints`, :class:`DemandCurve` and the recommendation records;
 * errors: every exception of the library (:mod:`models.errors`);
@@ -52,6 +53,7 @@ from models.fitted import fitted_periods, fitted_units
 from models.guards import price_range_warning
 from models.history import History
 from models.normal_means import NormalMeans, normal_means
+from models.outcomes import DriftCheck, ExpectedOutcomes, drift_check, expected_outcomes
 from models.pooling import pool_family
 from models.predict import Prediction, predict
 from models.price_plans import PriceTestPlan, plan_price_test
@@ -100,8 +102,10 @@ __all__ = [
     "DemandCurve",
     "DemandFit",
     "Diagnostics",
+    "DriftCheck",
     "ElasticityReport",
     "ElasticityRow",
+    "ExpectedOutcomes",
     "FamilyRecommendation",
     "FamilyTotal",
     "FitFailure",
@@ -138,7 +142,9 @@ __all__ = [
     "VIF_LIMIT",
     "WEAK_INSTRUMENT_F",
     "WrongSignError",
+    "drift_check",
     "elasticities",
+    "expected_outcomes",
     "fit_demand",
     "fit_many",
     "fitted_periods",
