@@ -34,7 +34,6 @@ from models import (
     generate_catalogue,
     shrink_own_price,
 )
-from models.fitted import _until
 
 HOLDOUT = 13
 
@@ -71,7 +70,7 @@ def run(seeds: int, form: str) -> dict[str, Tally]:
         products = [p for p in generate_catalogue(seed).products if p.truth.trap is None]
         families = {p.sku: p.family for p in products}
         whole = fit_many([p.history for p in products], spec)
-        short_histories = [_until(p.history, p.history.periods[-HOLDOUT - 1]) for p in products]
+        short_histories = [p.history.head(-HOLDOUT) for p in products]
         short = fit_many(short_histories, spec)
         keep = [
             i

@@ -19,7 +19,6 @@ from collections import Counter
 from collections.abc import Callable
 
 from models import COVARIATES, LOG_COVARIATES, ModelSpec, generate_catalogue
-from models.fitted import _until
 from models.select import FormScores, choose_form, score_forms_by_fold, steady_form
 
 Rule = Callable[[FormScores, str | None], str]
@@ -44,9 +43,7 @@ def main() -> None:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)  # poisson folds that overflow
             now = score_forms_by_fold([p.history for p in products], spec)
-            before = score_forms_by_fold(
-                [_until(p.history, p.history.periods[-9]) for p in products], spec
-            )
+            before = score_forms_by_fold([p.history.head(-8) for p in products], spec)
         for product, later, earlier in zip(products, now, before, strict=True):
             if isinstance(later, Exception) or isinstance(earlier, Exception):
                 continue

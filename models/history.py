@@ -97,3 +97,25 @@ class History:
                 k: np.asarray(v, dtype=np.float64) for k, v in (cross_prices or {}).items()
             },
         )
+
+    def head(self, n_periods: int) -> History:
+        """The first ``n_periods`` periods (a negative count leaves out that many at the end).
+
+        Examples
+        --------
+        >>> h = History.from_lists("TEA-001", ["2025-01-06", "2025-01-13", "2025-01-20"],
+        ...                        [4.5, 4.0, 4.2], [10, 14, 12])
+        >>> h.head(2).n_periods, h.head(-1).periods[-1]
+        (2, np.datetime64('2025-01-13'))
+        """
+        part = slice(0, n_periods)
+        return History(
+            sku=self.sku,
+            periods=self.periods[part],
+            price=self.price[part],
+            units=self.units[part],
+            unit_cost=self.unit_cost[part],
+            in_stock=self.in_stock[part],
+            covariates={k: v[part] for k, v in self.covariates.items()},
+            cross_prices={k: v[part] for k, v in self.cross_prices.items()},
+        )

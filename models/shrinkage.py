@@ -36,6 +36,7 @@ from models.normal_means import MIN_ESTIMATES, NormalMeans, normal_means
 from models.result import Coefficient, DemandFit
 
 _LINEAR_STEPS: Final = 8
+_UNREADABLE: Final = (ValueError, KeyError, IndexError, ArithmeticError, np.linalg.LinAlgError)
 
 
 @dataclass(frozen=True)
@@ -45,7 +46,9 @@ class ShrunkElasticity:
     Attributes
     ----------
     sku, family : str
-        The product and the family it was shrunk toward (None: the catalogue only).
+        The product and the family it was shrunk toward (None: the product has no family,
+        or families were not given or were all one; it then shrinks toward the catalogue,
+        as a family of its own when others have families).
     estimate, std_error : float
         The product's own elasticity and its standard error.
     shrunk, shrunk_std_error : float
@@ -151,6 +154,9 @@ def shrink_own_price(
         Without it, or with fewer than two families among the fits, all shrink toward
         the catalogue mean. A sku missing from it forms a family of its own.
 
+    A fit whose own-price elasticity cannot be computed (no finite value or standard
+    error) is left out (``left_out``) and returned unchanged; it never stops the others.
+
     Raises
     ------
     ValueError
@@ -175,8 +181,12 @@ def shrink_own_price(
     values: list[float] = []
     errors: list[float] = []
     for i, fit in enumerate(fits):
-        value, grad = own_elasticity(fit)
-        variance = float(grad @ fit.cov @ grad) if np.isfinite(value) else float("nan")
+        try:  # a fit whose numbers cannot be read is left out alone
+            with np.errstate(all="ignore"):
+                value, grad = own_elasticity(fit)
+                variance = float(grad @ fit.cov @ grad) if np.isfinite(value) else float("nan")
+        except _UNREADABLE:
+            continue
         if np.isfinite(value) and np.isfinite(variance) and variance > 0.0:
             used.append(i)
             values.append(value)
@@ -195,7 +205,8 @@ def shrink_own_price(
     rows = []
     out = list(fits)
     for k, i in enumerate(used):
-        family = names[k] if names is not None and two_level else None
+        has_family = families is not None and fits[i].sku in families
+        family = names[k] if names is not None and two_level and has_family else None
         shrunk, se = result.shrunk[k], result.shrunk_std_error[k]
         row = ShrunkElasticity(
             sku=fits[i].sku,
@@ -206,11 +217,15 @@ def shrink_own_price(
             shrunk_std_error=se,
             ci_low=shrunk - z * se,
             ci_high=shrunk + z * se,
-            family_mean=_family_mean(result, family),
+            family_mean=_family_mean(result, names[k] if names is not None and two_level else None),
             weight_on_family=result.weight_on_family[k],
         )
         rows.append(row)
-        out[i] = shrunk_fit(fits[i], row)
+        try:
+            with np.errstate(all="ignore"):
+                out[i] = shrunk_fit(fits[i], row)
+        except _UNREADABLE:
+            out[i] = fits[i]  # the shrunk elasticity stands; the fit keeps its own numbers
     return Shrinkage(
         products=tuple(rows),
         left_out=tuple(fits[i].sku for i in range(len(fits)) if i not in set(used)),

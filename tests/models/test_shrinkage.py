@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -213,6 +215,22 @@ def test_on_the_shop_shrinkage_recovers_the_truth_better_on_average() -> None:
 
 def _before_last(history: models.History, periods: int) -> models.History:
     """The history without its last ``periods`` periods."""
-    from models.fitted import _until
 
-    return _until(history, history.periods[-periods - 1])
+    return history.head(-periods)
+
+
+def test_an_unreadable_fit_is_left_out_alone(
+    catalogue_fits: tuple[list[models.DemandFit], dict[str, str]],
+) -> None:
+    fits, families = catalogue_fits
+    nan_row = tuple(float("nan") for _ in fits[0].covariance[0])
+    broken = replace(fits[0], covariance=tuple(nan_row for _ in fits[0].covariance))
+    result = shrink_own_price([broken, *fits[1:]], families=families)
+    assert result.left_out == (broken.sku,)
+    assert result.fits[0] is broken
+    assert len(result.products) == len(fits) - 1
+    # A product without a family is still shrunk, and says it has none.
+    lone = dict(families)
+    del lone[fits[1].sku]
+    row = shrink_own_price(fits, families=lone).product(fits[1].sku)
+    assert row.family is None and row.shrunk_std_error < row.std_error
