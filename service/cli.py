@@ -317,7 +317,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--scope",
         action="append",
         required=True,
-        choices=["read", "write", "admin"],
+        choices=["read", "write", "admin", "approve"],
         help="repeat for several scopes",
     )
     key_actions.add_parser("list", help="list keys (never secrets)")
