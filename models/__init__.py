@@ -14,7 +14,7 @@ detail. The surface, by task:
   :class:`PooledElasticity`) with the thresholds of its warnings (:data:`SIGNIFICANCE`,
   :data:`VIF_LIMIT`, :data:`WEAK_INSTRUMENT_F`);
 * reading a fit: :func:`elasticities`, :func:`predict`, :func:`price_range_warning`,
-  :func:`fitted_units`, :func:`fitted_periods`;
+  :func:`fitted_units`, :func:`fitted_periods`, :func:`holdout_units`;
 * learning: :func:`plan_price_test` (a price test and what it should teach and cost),
   :func:`expected_outcomes` and :func:`drift_check` (watching outcomes after a fit);
 * pricing: :func:`optimal_price`, :func:`optimal_family_prices`,
@@ -49,7 +49,7 @@ from models.errors import (
     WrongSignError,
 )
 from models.fit import fit_demand, fit_many
-from models.fitted import fitted_periods, fitted_units
+from models.fitted import fitted_periods, fitted_units, holdout_units
 from models.guards import price_range_warning
 from models.history import History
 from models.normal_means import NormalMeans, normal_means
@@ -150,6 +150,7 @@ __all__ = [
     "fitted_periods",
     "fitted_units",
     "generate_catalogue",
+    "holdout_units",
     "normal_means",
     "optimal_family_prices",
     "optimal_price",

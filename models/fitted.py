@@ -1,7 +1,8 @@
 """A fit read back over the history it came from: expected units and the periods it used.
 
-Charts of a fit over time need both: the model's expected units in every period next to
-the units sold, and which periods entered the estimation (and where its hold-out starts).
+Charts of a fit over time need these: the model's expected units in every period next to
+the units sold, which periods entered the estimation (and where its hold-out starts), and
+what the fit made without the hold-out expected there.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import numpy as np
 from models._typing import BoolArray, FloatArray
 from models.design import build_design
 from models.forecast import expected_units
+from models.holdout import holdout_predictions
 from models.history import History
 from models.result import DemandFit
 
@@ -111,6 +113,59 @@ def fitted_periods(fit: DemandFit, history: History) -> tuple[BoolArray, np.date
     holdout = fit.window.holdout_periods
     start = design.periods[-holdout] if 0 < holdout <= design.periods.size else None
     return mask, start
+
+
+def holdout_units(fit: DemandFit, history: History) -> FloatArray:
+    """Expected units of the hold-out periods from the fit made without them.
+
+    That fit (the same spec and form on the periods before the hold-out) is the one whose
+    forecasts scored ``fit.quality.holdout_wape``; its expected units here are the ones
+    that score measured. Drift shows as a gap between them and the units sold.
+
+    Parameters
+    ----------
+    fit : DemandFit
+        A fit of this product.
+    history : History
+        The product's history (it may run past the fit's last period).
+
+    Returns
+    -------
+    FloatArray
+        One value per period of ``history``: the expected units in the hold-out periods,
+        ``nan`` elsewhere, and everywhere when the fit has no hold-out or the fit without
+        it cannot be made.
+
+    Raises
+    ------
+    UnusableDataError
+        A variable is missing from the history, or a log term meets a non-positive value.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from models import ModelSpec, fit_demand, simulate_product
+    >>> from models.forecast import wape
+    >>> product = simulate_product(3, form="linear", n_periods=52)
+    >>> fit = fit_demand(product.history, ModelSpec(form="linear"))
+    >>> held = holdout_units(fit, product.history)
+    >>> int(np.isfinite(held).sum()) == fit.window.holdout_periods
+    True
+    >>> shown = np.isfinite(held)
+    >>> bool(np.isclose(wape(product.history.units[shown], held[shown]), fit.quality.holdout_wape))
+    True
+    """
+    out = np.full(history.n_periods, np.nan)
+    size = fit.window.holdout_periods
+    last = np.datetime64(fit.window.last_period, "D")
+    design = build_design(_until(history, last), fit.spec, fit.form)
+    rows = design.regressors.shape[0]
+    if not 0 < size < rows:
+        return out
+    [predicted] = holdout_predictions([design], [size], fit.spec)
+    if predicted is not None:
+        out[np.searchsorted(history.periods, design.periods[rows - size :])] = predicted
+    return out
 
 
 def _until(history: History, last: np.datetime64) -> History:

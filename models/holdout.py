@@ -11,6 +11,7 @@ from typing import Final
 
 import numpy as np
 
+from models._typing import FloatArray
 from models.design import Design
 from models.engine import FittedDesign, fit_designs, head, required_obs
 from models.errors import InsufficientDataError
@@ -50,15 +51,15 @@ def holdout_size(design: Design, requested: int | None) -> int:
     return requested
 
 
-def holdout_wapes(
+def holdout_predictions(
     designs: Sequence[Design], sizes: Sequence[int], spec: ModelSpec
-) -> list[float | None]:
-    """WAPE of each design's last ``sizes[i]`` rows predicted from a fit on the rows before.
+) -> list[FloatArray | None]:
+    """Expected units of each design's last ``sizes[i]`` rows from a fit on the rows before.
 
-    None where nothing is held out, the training fit fails, or the held-out units sum to 0.
+    None where nothing is held out or the training fit fails.
     """
     members = [i for i, h in enumerate(sizes) if h > 0]
-    out: list[float | None] = [None] * len(designs)
+    out: list[FloatArray | None] = [None] * len(designs)
     train = [head(designs[i], designs[i].regressors.shape[0] - sizes[i]) for i in members]
     for i, result in zip(members, fit_designs(train, spec), strict=True):
         if not isinstance(result, FittedDesign):
@@ -68,7 +69,24 @@ def holdout_wapes(
             smearing_factor(result.estimate.resid) if design.form in LOG_RESPONSE_FORMS else None
         )
         rows = design.regressors[start:][:, list(result.kept)]
-        predicted = expected_units(design.form, rows, result.estimate.params, smearing)
-        score = wape(design.units[start:], predicted)
-        out[i] = score if np.isfinite(score) else None
+        out[i] = expected_units(design.form, rows, result.estimate.params, smearing)
+    return out
+
+
+def holdout_wapes(
+    designs: Sequence[Design], sizes: Sequence[int], spec: ModelSpec
+) -> list[float | None]:
+    """WAPE of each design's last ``sizes[i]`` rows predicted from a fit on the rows before.
+
+    None where nothing is held out, the training fit fails, or the held-out units sum to 0.
+    """
+    out: list[float | None] = []
+    for design, size, predicted in zip(
+        designs, sizes, holdout_predictions(designs, sizes, spec), strict=True
+    ):
+        if predicted is None:
+            out.append(None)
+            continue
+        score = wape(design.units[design.regressors.shape[0] - size :], predicted)
+        out.append(score if np.isfinite(score) else None)
     return out

@@ -65,6 +65,20 @@ def describe(subject: chartdata.Subject, kind: str) -> tuple[str, tuple[str, ...
     return charts_fit_time.fit_time_text(chartdata_fit_time.fit_time_inputs(subject))
 
 
+def marks(subject: chartdata.Subject, kind: str) -> tuple[tuple[str, ...], str | None]:
+    """The ids of the marks a chart draws and its note, without drawing it (for captions)."""
+    from service.ui import charts_demand, charts_fit_time, charts_money
+
+    if kind == "demand":
+        demand = chartdata_demand.demand_inputs(subject)
+        return charts_demand.demand_marks(demand), demand.note
+    if kind == "money":
+        money = chartdata_money.money_inputs(subject)
+        return charts_money.money_marks(money), money.note
+    over_time = chartdata_fit_time.fit_time_inputs(subject)
+    return charts_fit_time.fit_time_marks(over_time), over_time.note
+
+
 def cached_svg(
     session: Session, product: ProductInfo, key: ChartKey, cache: SvgCache = chart_cache
 ) -> bytes:

@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from models import UnusableDataError, fitted_periods, fitted_units
+from models import UnusableDataError, fitted_periods, fitted_units, holdout_units
 from service.ui.chartdata import PROMO_COVARIATE, Subject, fit_label
 from service.ui.records import ProductInfo
 
@@ -21,6 +21,9 @@ class FitTimeInputs:
     stockout: np.ndarray  # bool
     promotion: np.ndarray  # bool
     fitted: np.ndarray | None  # nan where the model cannot be evaluated
+    # The hold-out's expected units from the fit made without them (nan elsewhere): the
+    # forecasts the hold-out WAPE scored.
+    holdout_fitted: np.ndarray | None
     in_fit: np.ndarray  # bool: the week entered the estimation
     holdout_start: np.datetime64 | None
     holdout_weeks: int
@@ -34,6 +37,7 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
     unfitted: dict[str, Any] = {
         "fit_label": None,
         "fitted": None,
+        "holdout_fitted": None,
         "holdout_start": None,
         "holdout_weeks": 0,
         "r_squared": None,
@@ -75,14 +79,16 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
         # (the chart draws finite values only), not errors.
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
             fitted = fitted_units(fit, history)
+            held = holdout_units(fit, history)
         in_fit, start = fitted_periods(fit, history)
     except (UnusableDataError, ValueError, ArithmeticError):
-        fitted, in_fit, start = None, no_weeks, None
+        fitted, held, in_fit, start = None, None, no_weeks, None
         note = (note + " " if note else "") + "The fit cannot be evaluated on the stored history."
     return FitTimeInputs(
         **base,
         fit_label=fit_label(shown),
         fitted=fitted,
+        holdout_fitted=held if held is not None and np.isfinite(held).any() else None,
         in_fit=in_fit,
         holdout_start=start,
         holdout_weeks=fit.window.holdout_periods if start is not None else 0,

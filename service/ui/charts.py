@@ -17,6 +17,7 @@ import functools
 import io
 import math
 import re
+import textwrap
 import threading
 import unicodedata
 import warnings
@@ -26,6 +27,7 @@ from typing import Any, TypeVar
 from xml.sax.saxutils import escape
 
 import matplotlib
+import numpy as np
 
 matplotlib.use("Agg")
 matplotlib.rcParams.update(
@@ -196,20 +198,61 @@ def style_axes(ax: Axes, *, date_axis: bool = False) -> None:
         spine.set_color(MUTED)
 
 
-def note_box(ax: Axes, text: str, gid: str = "chart-note") -> None:
-    ax.text(
+# The top of the plot area, in inches below the figure's top edge: room for the heading.
+HEADING_INCHES = 0.39
+# A note's lines: characters per line at 8.5 pt across the chart, and inches per line.
+NOTE_CHARS = 110
+NOTE_LINE_INCHES = 0.15
+
+
+def plot_top(figure: Figure, note: str | None, gid: str = "chart-note") -> float:
+    """Where the plot area starts (a fraction of the figure's height): under the heading,
+    and under the note when there is one. The note sits between the heading and the plot,
+    so it never hides a mark or a label drawn inside the plot."""
+    height = figure.get_figheight()
+    if not note:
+        return 1.0 - HEADING_INCHES / height
+    lines = textwrap.wrap(plain(note), NOTE_CHARS) or [""]
+    figure.text(
         0.5,
-        0.97,
-        plain(text),
-        transform=ax.transAxes,
+        1.0 - (HEADING_INCHES - 0.02) / height,
+        "\n".join(lines),
         ha="center",
         va="top",
         fontsize=8.5,
         color=INK,
-        wrap=True,
         gid=gid,
         bbox={"boxstyle": "round,pad=0.4", "facecolor": "white", "edgecolor": MUTED},
     )
+    used = HEADING_INCHES + NOTE_LINE_INCHES * len(lines) + 0.22
+    return 1.0 - used / height
+
+
+def cover_with_ticks(ax: Axes, values: Sequence[Any]) -> None:
+    """Widen the value axis to the nearest ticks beyond the data, so no line runs above
+    the top tick or below the bottom one (``values``: the arrays drawn on it)."""
+    finite = [np.asarray(v, dtype=float) for v in values]
+    finite = [v[np.isfinite(v)] for v in finite]
+    finite = [v for v in finite if v.size]
+    if not finite:
+        return
+    data_low = min(float(v.min()) for v in finite)
+    data_high = max(float(v.max()) for v in finite)
+    for _ in range(4):  # new limits can move the ticks; settle within a few rounds
+        low, high = ax.get_ylim()
+        slack = 1e-9 * (high - low)
+        ticks = [t for t in ax.get_yticks() if low - slack <= t <= high + slack]
+        if len(ticks) < 2:
+            return
+        step = ticks[1] - ticks[0]
+        top, bottom = ticks[-1], ticks[0]
+        if top < data_high:
+            high = top + step * math.ceil((data_high - top) / step)
+        if bottom > data_low:
+            low = bottom - step * math.ceil((bottom - data_low) / step)
+        if (low, high) == ax.get_ylim():
+            return
+        ax.set_ylim(low, high)
 
 
 def placeholder(kind: str, title: str, message: str, summary: Sequence[str]) -> Chart:

@@ -6,6 +6,7 @@ from typing import Any
 
 import numpy as np
 from matplotlib.axes import Axes
+from matplotlib.figure import Figure
 
 from service.ui.chartdata_demand import DemandInputs
 from service.ui.charts import (
@@ -20,17 +21,22 @@ from service.ui.charts import (
     TEAL,
     Chart,
     count,
+    cover_with_ticks,
     heading,
     legend_below,
     money,
     new_figure,
-    note_box,
     one_at_a_time,
     placeholder,
+    plot_top,
     style_axes,
     to_svg,
 )
 from service.ui.words import plural
+
+# The interval band's opacity over white: dark enough to differ in grey from the
+# prices-seen band (tested in tests/service/ui/test_chart_drawing.py).
+BAND_ALPHA = 0.34
 
 _POINT_STYLE: dict[str, dict[str, Any]] = {
     "regular": {"marker": "o", "c": SLATE, "s": 18},
@@ -52,19 +58,59 @@ def demand_text(data: DemandInputs) -> tuple[str, tuple[str, ...]]:
 @one_at_a_time("demand", demand_text)
 def demand_chart(data: DemandInputs) -> Chart:
     title, summary = demand_text(data)
-    p = data.product
     if not data.groups and data.band is None:
         return placeholder("demand", title, data.note or "Nothing to show yet.", summary[1:])
+    figure = demand_figure(data, title)
+    return Chart("demand", title, summary, to_svg(figure, title, summary))
+
+
+def _curve_parts(data: DemandInputs) -> dict[str, np.ndarray]:
+    """The fitted curve's parts: inside the prices seen (solid) and beyond them (dashed)."""
+    band = data.band
+    if band is None:
+        return {}
+    low, high = data.observed_range or (band.price[0], band.price[-1])
+    parts = {"demand-curve": (band.price >= low) & (band.price <= high)}
+    below, above = band.price <= low, band.price >= high
+    if below.sum() > 1:
+        parts["demand-curve-below-range"] = below
+    if above.sum() > 1:
+        parts["demand-curve-above-range"] = above
+    return {gid: mask for gid, mask in parts.items() if mask.any()}
+
+
+def demand_marks(data: DemandInputs) -> tuple[str, ...]:
+    """The ids of the marks the chart draws (for its caption and its tests)."""
+    if not data.groups and data.band is None:
+        return ("placeholder",)
+    marks = ["observed-range"] if data.observed_range is not None else []
+    marks += [f"weeks-{group.kind}" for group in data.groups]
+    if data.band is not None:
+        marks += ["demand-band", *_curve_parts(data)]
+    if data.current_price is not None:
+        marks.append("current-price")
+    if data.recommended_price is not None:
+        marks.append("recommended-price")
+    return tuple(marks)
+
+
+def demand_figure(data: DemandInputs, title: str) -> Figure:
+    p = data.product
     figure = new_figure()
     ax = figure.add_subplot()
     style_axes(ax)
     heading(figure, title)
+    drawn: list[np.ndarray] = [np.zeros(1)]
     if data.observed_range is not None:
         low, high = data.observed_range
+        # Hatched as well as tinted, so it stays apart from the interval band in grey.
         ax.axvspan(
             low,
             high,
-            color=SAND,
+            facecolor=SAND,
+            edgecolor=MUTED,
+            hatch="..",
+            linewidth=0,
             zorder=0,
             gid="observed-range",
             label=f"prices seen in the fit: {low:.2f} to {high:.2f}",
@@ -79,62 +125,46 @@ def demand_chart(data: DemandInputs) -> Chart:
             label=f"{group.label} ({group.price.size})",
             **_POINT_STYLE[group.kind],
         )
+        drawn.append(group.units)
     band = data.band
     if band is not None:
+        # Darker than the prices-seen band, so the two differ in grey as well as in hue.
         ax.fill_between(
             band.price,
             band.low,
             band.high,
             color=TEAL,
-            alpha=0.16,
+            alpha=BAND_ALPHA,
             linewidth=0,
             zorder=1,
             gid="demand-band",
             label=f"{band.level:.0%} range for one week's units",
         )
-        low, high = data.observed_range or (band.price[0], band.price[-1])
-        inside = (band.price >= low) & (band.price <= high)
-        ax.plot(
-            band.price[inside],
-            band.expected[inside],
-            color=TEAL,
-            linewidth=2.2,
-            zorder=4,
-            gid="demand-curve",
-            label="expected units (fitted curve)",
-        )
-        below, above = band.price <= low, band.price >= high
-        if below.sum() > 1:
+        drawn.append(band.high)
+        beyond_label = "expected units beyond the prices seen"
+        for gid, mask in _curve_parts(data).items():
+            solid = gid == "demand-curve"
             ax.plot(
-                band.price[below],
-                band.expected[below],
+                band.price[mask],
+                band.expected[mask],
                 color=TEAL,
-                linewidth=1.6,
-                linestyle="--",
+                linewidth=2.2 if solid else 1.6,
+                linestyle="-" if solid else "--",
                 zorder=4,
-                gid="demand-curve-below-range",
-                label="expected units beyond the prices seen",
+                gid=gid,
+                label="expected units (fitted curve)" if solid else beyond_label,
             )
-        if above.sum() > 1:
-            ax.plot(
-                band.price[above],
-                band.expected[above],
-                color=TEAL,
-                linewidth=1.6,
-                linestyle="--",
-                zorder=4,
-                gid="demand-curve-above-range",
-                label=None if below.sum() > 1 else "expected units beyond the prices seen",
-            )
+            if not solid:
+                beyond_label = "_"  # one legend entry for both dashed parts
+            drawn.append(band.expected[mask])
     _price_marks(ax, data.current_price, data.recommended_price)
     ax.set_xlabel(f"price ({p.currency})")
     ax.set_ylabel("units per week")
     ax.set_ylim(bottom=0)
-    if data.note:
-        note_box(ax, data.note)
-    figure.subplots_adjust(left=0.09, right=0.98, top=0.92)
+    cover_with_ticks(ax, drawn)
+    figure.subplots_adjust(left=0.09, right=0.98, top=plot_top(figure, data.note))
     legend_below(figure, [ax], columns=3, height=DEMAND_HEIGHT)
-    return Chart("demand", title, summary, to_svg(figure, title, summary))
+    return figure
 
 
 def _price_marks(ax: Axes, current: float | None, recommended: float | None) -> None:

@@ -3,24 +3,29 @@
 from __future__ import annotations
 
 import numpy as np
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
 
 from service.ui.chartdata_fit_time import FitTimeInputs
 from service.ui.charts import (
     AMBER,
     BRICK,
     INK,
+    MUTED,
+    PLUM,
     SAND,
     SLATE,
     TEAL,
     TIME_HEIGHT,
     Chart,
     count,
+    cover_with_ticks,
     heading,
     legend_below,
     new_figure,
-    note_box,
     one_at_a_time,
     placeholder,
+    plot_top,
     style_axes,
     to_svg,
 )
@@ -42,11 +47,63 @@ def fit_time_chart(data: FitTimeInputs) -> Chart:
     title, summary = fit_time_text(data)
     if data.periods.size == 0:
         return placeholder("fit-over-time", title, data.note or "No history.", summary[1:])
+    figure = fit_time_figure(data, title)
+    return Chart("fit-over-time", title, summary, to_svg(figure, title, summary))
+
+
+def _residuals(data: FitTimeInputs) -> np.ndarray:
+    """Which weeks get a residual bar: fitted, in the fit and sold."""
+    if data.fitted is None:
+        return np.zeros(data.periods.size, dtype=bool)
+    used: np.ndarray = np.isfinite(data.fitted) & data.in_fit & np.isfinite(data.actual)
+    return used
+
+
+def fit_time_marks(data: FitTimeInputs) -> tuple[str, ...]:
+    """The ids of the marks the chart draws (for its caption and its tests)."""
+    if data.periods.size == 0:
+        return ("placeholder",)
+    seen = np.isfinite(data.actual)
+    marks = ["actual-units"]
+    if (data.promotion & seen).any():
+        marks.append("promotion-weeks")
+    if (data.stockout & seen).any():
+        marks.append("stockout-weeks")
+    if data.fitted is not None and np.isfinite(_full_fit_line(data)).any():
+        marks.append("fitted-units")
+    if _residuals(data).any():
+        marks.append("residuals")
+    if data.holdout_start is not None:
+        marks.append("holdout-window")
+        if data.holdout_fitted is not None:
+            marks.append("holdout-forecast")
+    return tuple(marks)
+
+
+def _full_fit_line(data: FitTimeInputs) -> np.ndarray:
+    """The full fit's units, left out over the hold-out when the hold-out's own forecast
+    is drawn there instead."""
+    assert data.fitted is not None
+    line = data.fitted.copy()
+    if data.holdout_fitted is not None:
+        line[np.isfinite(data.holdout_fitted)] = np.nan
+    return line
+
+
+def fit_time_figure(data: FitTimeInputs, title: str) -> Figure:
+    """The drawn chart; its residual panel only when there are residuals to show."""
     figure = new_figure(TIME_HEIGHT)
-    grid = figure.add_gridspec(2, 1, height_ratios=(3, 1.2), hspace=0.12)
-    top = figure.add_subplot(grid[0])
-    bottom = figure.add_subplot(grid[1], sharex=top)
-    for ax in (top, bottom):
+    marks = fit_time_marks(data)
+    if "residuals" in marks:
+        grid = figure.add_gridspec(2, 1, height_ratios=(3, 1.2), hspace=0.12)
+        top = figure.add_subplot(grid[0])
+        residual_panel = figure.add_subplot(grid[1], sharex=top)
+        bottom: Axes | None = residual_panel
+        panels = [top, residual_panel]
+    else:
+        top, bottom = figure.add_subplot(), None
+        panels = [top]
+    for ax in panels:
         style_axes(ax, date_axis=True)
     heading(figure, title)
     days = _days(data.periods)
@@ -58,10 +115,12 @@ def fit_time_chart(data: FitTimeInputs) -> Chart:
             start,
             end,
             facecolor=SAND,
+            edgecolor=MUTED,
+            hatch="..",
             linewidth=0,
             zorder=0,
             gid="holdout-window",
-            label=f"hold-out weeks ({data.holdout_weeks}), scored by a fit made without them",
+            label=f"hold-out weeks ({data.holdout_weeks})",
         )
         top.text(
             start,
@@ -74,9 +133,17 @@ def fit_time_chart(data: FitTimeInputs) -> Chart:
             color=INK,
             gid="holdout-label",
         )
-        bottom.axvspan(
-            start, end, facecolor=SAND, linewidth=0, zorder=0, gid="holdout-window-residuals"
-        )
+        if bottom is not None:
+            bottom.axvspan(
+                start,
+                end,
+                facecolor=SAND,
+                edgecolor=MUTED,
+                hatch="..",
+                linewidth=0,
+                zorder=0,
+                gid="holdout-window-residuals",
+            )
     top.plot(
         days[seen],
         data.actual[seen],
@@ -103,44 +170,65 @@ def fit_time_chart(data: FitTimeInputs) -> Chart:
                 gid=gid,
                 label=f"{label} ({int(chosen.sum())})",
             )
-    fitted = data.fitted
-    if fitted is not None:
-        ok = np.isfinite(fitted)
-        if ok.any():
-            top.plot(
-                days[ok],
-                fitted[ok],
-                color=TEAL,
-                linewidth=1.8,
-                linestyle="--",
-                zorder=3,
-                gid="fitted-units",
-                label="fitted units",
-            )
-        used = ok & data.in_fit & seen
-        if used.any():
-            # One line collection rather than a bar per week: far cheaper to draw.
-            bottom.vlines(
-                days[used],
-                0.0,
-                data.actual[used] - fitted[used],
-                color=SLATE,
-                linewidth=2.4,
-                gid="residuals",
-                label="residual (actual - fitted), weeks in the fit",
-            )
-    bottom.axhline(0.0, color=INK, linewidth=0.8)
-    bottom.xaxis_date()
+    drawn: list[np.ndarray] = [data.actual[seen]]
+    if "fitted-units" in marks:
+        line = _full_fit_line(data)
+        ok = np.isfinite(line)
+        top.plot(
+            days[ok],
+            line[ok],
+            color=TEAL,
+            linewidth=1.8,
+            linestyle="--",
+            zorder=3,
+            gid="fitted-units",
+            label="fitted units",
+        )
+        drawn.append(line[ok])
+    if "holdout-forecast" in marks:
+        assert data.holdout_fitted is not None
+        held = np.isfinite(data.holdout_fitted)
+        top.plot(
+            days[held],
+            data.holdout_fitted[held],
+            color=PLUM,
+            linewidth=1.8,
+            linestyle="-.",
+            marker="s",
+            markersize=3,
+            zorder=3,
+            gid="holdout-forecast",
+            label="hold-out forecast, by a fit made without those weeks",
+        )
+        drawn.append(data.holdout_fitted[held])
+    if bottom is not None:
+        assert data.fitted is not None
+        used = _residuals(data)
+        # One line collection rather than a bar per week: far cheaper to draw.
+        bottom.vlines(
+            days[used],
+            0.0,
+            data.actual[used] - data.fitted[used],
+            color=SLATE,
+            linewidth=2.4,
+            gid="residuals",
+            label="residual (actual - fitted), weeks in the fit",
+        )
+        bottom.axhline(0.0, color=INK, linewidth=0.8)
+        bottom.xaxis_date()
+        bottom.set_ylabel("residual")
+        bottom.set_xlabel("week starting")
+        top.tick_params(labelbottom=False)
+        cover_with_ticks(bottom, [data.actual[used] - data.fitted[used], [0.0]])
+    else:
+        top.xaxis_date()
+        top.set_xlabel("week starting")
     top.set_ylabel("units per week")
     top.set_ylim(bottom=0)
-    bottom.set_ylabel("residual")
-    bottom.set_xlabel("week starting")
-    top.tick_params(labelbottom=False)
-    if data.note:
-        note_box(top, data.note)
-    figure.subplots_adjust(left=0.09, right=0.98, top=0.93)
-    legend_below(figure, [top, bottom], columns=3, height=TIME_HEIGHT)
-    return Chart("fit-over-time", title, summary, to_svg(figure, title, summary))
+    cover_with_ticks(top, [*drawn, [0.0]])
+    figure.subplots_adjust(left=0.09, right=0.98, top=plot_top(figure, data.note))
+    legend_below(figure, panels, columns=3, height=TIME_HEIGHT)
+    return figure
 
 
 def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from matplotlib.figure import Figure
 
 from service.ui import words
 from service.ui.chartdata_money import MoneyInputs
@@ -15,13 +16,14 @@ from service.ui.charts import (
     SLATE,
     TEAL,
     Chart,
+    cover_with_ticks,
     heading,
     legend_below,
     money,
     new_figure,
-    note_box,
     one_at_a_time,
     placeholder,
+    plot_top,
     style_axes,
     to_svg,
 )
@@ -35,9 +37,42 @@ def money_text(data: MoneyInputs) -> tuple[str, tuple[str, ...]]:
 @one_at_a_time("money", money_text)
 def money_chart(data: MoneyInputs) -> Chart:
     title, summary = money_text(data)
-    p = data.product
     if not data.drawn:
         return placeholder("money", title, data.note or "No price can be weighed.", summary[1:])
+    figure = money_figure(data, title)
+    return Chart("money", title, summary, to_svg(figure, title, summary))
+
+
+def _shows_unconstrained(data: MoneyInputs) -> bool:
+    free, best = data.unconstrained_price, data.best_price
+    if free is None or best is None or abs(free - best) <= 0.005 * abs(best):
+        return False
+    return float(data.price[0]) <= free <= float(data.price[-1])
+
+
+def money_marks(data: MoneyInputs) -> tuple[str, ...]:
+    """The ids of the marks the chart draws (for its caption and its tests)."""
+    if not data.drawn:
+        return ("placeholder",)
+    marks = ["feasible-band"] if data.feasible is not None else []
+    marks.append("revenue-curve")
+    if data.profit is not None:
+        marks.append("profit-curve")
+    if data.best_price is not None and data.best_value is not None:
+        marks.append("best-price")
+    if data.current_price is not None:
+        marks.append("current-price")
+    if _shows_unconstrained(data):
+        marks.append("unconstrained-price")
+    if data.stored_price is not None:
+        marks.append("stored-recommendation")
+    if data.price_interval is not None:
+        marks.append("price-interval")
+    return tuple(marks)
+
+
+def money_figure(data: MoneyInputs, title: str) -> Figure:
+    p = data.product
     figure = new_figure()
     ax = figure.add_subplot()
     style_axes(ax)
@@ -113,18 +148,15 @@ def money_chart(data: MoneyInputs) -> Chart:
                 gid="current-point",
             )
     free = data.unconstrained_price
-    best = data.best_price
-    if free is not None and best is not None and abs(free - best) > 0.005 * abs(best):
-        lo, hi = float(data.price[0]), float(data.price[-1])
-        if lo <= free <= hi:
-            ax.axvline(
-                free,
-                color=MUTED,
-                linestyle=(0, (4, 2, 1, 2)),
-                linewidth=1.2,
-                gid="unconstrained-price",
-                label=f"best price with no rules {free:.2f}",
-            )
+    if free is not None and _shows_unconstrained(data):
+        ax.axvline(
+            free,
+            color=MUTED,
+            linestyle=(0, (4, 2, 1, 2)),
+            linewidth=1.2,
+            gid="unconstrained-price",
+            label=f"best price with no rules {free:.2f}",
+        )
     if data.stored_price is not None:
         ax.axvline(
             data.stored_price,
@@ -134,6 +166,12 @@ def money_chart(data: MoneyInputs) -> Chart:
             gid="stored-recommendation",
             label=f"stored recommendation {data.stored_price:.2f} (other fit)",
         )
+    drawn = [data.revenue] + ([data.profit] if data.profit is not None else [])
+    if data.best_value is not None:
+        drawn.append(np.array([data.best_value]))
+    if data.current_value is not None:
+        drawn.append(np.array([data.current_value]))
+    cover_with_ticks(ax, drawn)
     if data.price_interval is not None:
         low, high = data.price_interval
         y = ax.get_ylim()[0] + 0.06 * (ax.get_ylim()[1] - ax.get_ylim()[0])
@@ -152,11 +190,9 @@ def money_chart(data: MoneyInputs) -> Chart:
         )
     ax.set_xlabel(f"price ({p.currency})")
     ax.set_ylabel(f"per week ({p.currency})")
-    if data.note:
-        note_box(ax, data.note)
-    figure.subplots_adjust(left=0.1, right=0.98, top=0.92)
+    figure.subplots_adjust(left=0.1, right=0.98, top=plot_top(figure, data.note))
     legend_below(figure, [ax], columns=2, height=DEMAND_HEIGHT)
-    return Chart("money", title, summary, to_svg(figure, title, summary))
+    return figure
 
 
 def _money_summary(data: MoneyInputs) -> tuple[str, ...]:

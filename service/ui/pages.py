@@ -245,48 +245,74 @@ class ChartView:
 
 
 CHART_HEADINGS = {
+    "demand": "Demand",
+    "money": "Revenue and profit",
+    "fit-over-time": "Fit over time",
+}
+
+# How to read a chart, a sentence per mark: a caption names only the marks its chart
+# draws (the ids are the charts' own, see service.ui.charts_*.*_marks).
+READINGS: dict[str, tuple[tuple[tuple[str, ...], str], ...]] = {
     "demand": (
-        "Demand",
-        "Each point is a past {period}. The solid line is the expected demand at the stated "
-        "values of the other drivers, the shaded band the range one {period}'s units fall in "
-        "95 times in 100; dashed parts lie beyond the prices the fit has seen.",
+        (("weeks-",), "Each point is a past {period}."),
+        (
+            ("demand-curve",),
+            "The solid line is the expected demand at the stated values of the other drivers.",
+        ),
+        (
+            ("demand-band",),
+            "The shaded band is the range one {period}'s units fall in 95 times in 100.",
+        ),
+        (
+            ("demand-curve-below-range", "demand-curve-above-range"),
+            "Dashed parts lie beyond the prices the fit has seen.",
+        ),
+        (("observed-range",), "The dotted background spans the prices the fit has seen."),
+        (("current-price",), "The dotted vertical line is the current price."),
+        (("recommended-price",), "The dash-dotted vertical line is the recommended price."),
     ),
     "money": (
-        "Revenue and profit",
-        "Both curves come from the fitted demand. The hatched band holds the prices the "
-        "constraints allow; the star is the best price within it, the bar under it the range "
-        "that best price takes when the coefficients are redrawn within their uncertainty.",
+        (("profit-curve",), "Both curves come from the fitted demand."),
+        (("revenue-curve",), "Revenue comes from the fitted demand."),
+        (("feasible-band",), "The hatched band holds the prices the constraints allow."),
+        (("best-price",), "The star is the best price under the constraints."),
+        (
+            ("price-interval",),
+            "The bar under it is the range that best price takes when the "
+            "coefficients are redrawn within their uncertainty.",
+        ),
+        (("current-price",), "The dotted vertical line is the current price."),
+        (("unconstrained-price",), "A grey line marks the best price with no constraints."),
+        (
+            ("stored-recommendation",),
+            "A thin dotted line marks the stored recommendation, made from another fit.",
+        ),
     ),
     "fit-over-time": (
-        "Fit over time",
-        "Actual units per {period} against the model's fitted units; the bars below are the "
-        "misses. The shaded {period}s at the end are the hold-out: a separate fit made without "
-        "them scored them, which is what the hold-out WAPE measures; the dashed line over them "
-        "is the full fit's.",
+        (("actual-units",), "The solid line is the actual units per {period}."),
+        (("fitted-units",), "The dashed line is the model's fitted units."),
+        (("residuals",), "The bars below are the misses of the {period}s in the fit."),
+        (("holdout-window",), "The shaded {period}s at the end are the hold-out."),
+        (
+            ("holdout-forecast",),
+            "Over them the dash-dotted line is the forecast of a separate "
+            "fit made without them: what the hold-out WAPE scores.",
+        ),
     ),
 }
 
-# What a chart shows when it is a placeholder, so its caption names no mark it lacks.
-PLACEHOLDER_READINGS = {
-    "demand": "Each point is a past {period}. No demand curve is drawn: {why}",
-    "money": "No revenue and profit curves are drawn: {why}",
-    "fit-over-time": "Actual units per {period}. No fitted units are drawn: {why}",
-}
 
-
-def chart_reading(subject: chartdata.Subject, kind: str, period: str) -> str:
-    """The caption under a chart: how to read its marks, or why it has none."""
-    shown = subject.fit
-    why = None
-    if subject.history is None:
-        return "Nothing is drawn yet: this product has no sales history."
-    if shown is None:
-        why = "no demand model has been fitted for this product yet."
-    elif kind == "money" and not shown.active:
-        why = "the fit was rejected by the quality gates, so no price is recommended from it."
-    if why is None:
-        return CHART_HEADINGS[kind][1].format(period=period)
-    return PLACEHOLDER_READINGS[kind].format(period=period, why=why)
+def chart_reading(marks: tuple[str, ...], note: str | None, kind: str, period: str) -> str:
+    """The caption under a chart: how to read the marks it draws, or why it draws none."""
+    if marks == ("placeholder",):
+        return f"No chart is drawn: {note or 'there is nothing to show yet.'}"
+    sentences = []
+    for names, sentence in READINGS[kind]:
+        if kind == "money" and names == ("revenue-curve",) and "profit-curve" in marks:
+            continue  # "both curves" already says it
+        if any(m == n or (n.endswith("-") and m.startswith(n)) for m in marks for n in names):
+            sentences.append(sentence.format(period=period))
+    return " ".join(sentences)
 
 
 @dataclass(frozen=True)
@@ -319,8 +345,10 @@ def chart_views(
             title, summary = drawn[kind].title, drawn[kind].summary
         else:
             title, summary = chartbook.describe(subject, kind)
-        heading = CHART_HEADINGS[kind][0]
-        reading = chart_reading(subject, kind, fit_period(subject.fit.fit if subject.fit else None))
+        heading = CHART_HEADINGS[kind]
+        marks, note = chartbook.marks(subject, kind)
+        period = fit_period(subject.fit.fit if subject.fit else None)
+        reading = chart_reading(marks, note, kind, period)
         views.append(ChartView(kind, heading, title, summary, reading))
     return views
 
