@@ -13,7 +13,7 @@ from collections import OrderedDict
 from dataclasses import dataclass
 
 DEFAULT_BUDGET_BYTES = 64 * 1024 * 1024
-RENDER_VERSION = "3"  # bump when the drawing changes, so browsers refetch
+RENDER_VERSION = "4"  # bump when the drawing changes, so browsers refetch
 
 
 @dataclass(frozen=True)
