@@ -12,7 +12,7 @@ from service.core.deps import APPROVE, READ, WRITE, ReadSession, SettingsDep, Wr
 from service.core.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import Page
-from service.estimation import answers, fit_review, fits
+from service.estimation import answers, fit_review, fits, shrinkage
 from service.estimation.schemas import (
     ActivateFitRequest,
     ElasticitiesOut,
@@ -23,6 +23,7 @@ from service.estimation.schemas import (
     PredictRequest,
     fit_out,
     fit_summary,
+    shrunk_out,
 )
 
 router = APIRouter(prefix="/v1/products/{sku}", tags=["demand models"])
@@ -159,18 +160,19 @@ def get_elasticities(
         Query(description="Covariates to classify as inferior / necessity / luxury"),
     ] = None,
 ) -> ElasticitiesOut:
-    fit_id, fit = fits.active_fit(session, product)
-    answer = answers.elasticities_at(fit, at=at, income_like=tuple(income_like or ()))
+    found = shrinkage.shrunk_active_fit(session, product=product)
+    answer = answers.elasticities_at(found.own, at=at, income_like=tuple(income_like or ()))
     body = answer.report.to_dict()
     return ElasticitiesOut(
         sku=product.sku,
-        fit_id=fit_id,
+        fit_id=found.fit_id,
         form=body["form"],
         at=body["at"],
         point=body["point"],
         level=body["level"],
         elasticities=body["rows"],
         pooled=body["pooled"],
+        shrunk=shrunk_out(found, shrinkage.own_row_at(found, at=at)),
         warnings=answer.warnings,
     )
 

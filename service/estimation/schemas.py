@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import datetime as dt
-from typing import Annotated, Any, Literal
+import math
+from typing import TYPE_CHECKING, Annotated, Any, Literal
 
 from pydantic import (
     BaseModel,
@@ -17,6 +18,10 @@ from service.core.tables import (
     as_utc,
 )
 from service.estimation.fit_review import review_step
+
+if TYPE_CHECKING:
+    from models import ElasticityRow
+    from service.estimation.shrinkage import ShrunkFit
 
 
 class FitRequest(Strict):
@@ -201,6 +206,37 @@ class ElasticityOut(BaseModel):
     model_config = ConfigDict(populate_by_name=True)
 
 
+class ShrunkOut(BaseModel):
+    """The own-price elasticity after borrowing strength from the catalogue."""
+
+    value: float | None = Field(
+        description="The own-price elasticity of the shrunk fit at the same point as "
+        "`elasticities` (empirical Bayes: the product's own estimate moved toward its "
+        "family's and the catalogue's mean, the more the noisier it is)"
+    )
+    std_error: float | None
+    ci_low: float | None
+    ci_high: float | None
+    class_: str | None = Field(
+        alias="class",
+        serialization_alias="class",
+        description="As for the own-price row, from the shrunk value and interval",
+    )
+    family: str | None = Field(description="The family it was shrunk toward (null: none)")
+    family_mean: float | None = Field(
+        description="The estimated mean own-price elasticity of the family, at the means"
+    )
+    catalogue_mean: float | None = Field(
+        description="The estimated mean own-price elasticity of the catalogue, at the means"
+    )
+    weight_on_family: float | None = Field(
+        description="The family mean's weight in the shrunk value at the means (0 to 1)"
+    )
+    n_products: int = Field(description="Products whose active fits took part")
+
+    model_config = ConfigDict(populate_by_name=True)
+
+
 class ElasticitiesOut(BaseModel):
     sku: str
     fit_id: int
@@ -210,6 +246,12 @@ class ElasticitiesOut(BaseModel):
     level: float
     elasticities: list[ElasticityOut]
     pooled: PooledOut | None
+    shrunk: ShrunkOut | None = Field(
+        description="The own-price elasticity shrunk toward the product's family and the "
+        "catalogue over every active fit (see docs/estimation.md, Borrowing strength); null "
+        "when fewer than three products have an active fit with a usable own-price "
+        "elasticity. An estimate to weigh, not an instruction."
+    )
     warnings: list[WarningOut]
 
 
@@ -279,4 +321,25 @@ def fit_out(row: FitRow, sku: str) -> FitOut:
         candidate_scores=result.get("candidate_scores") or {},
         pooled=result.get("pooled"),
         review=review_step(row, sku),
+    )
+
+
+def shrunk_out(found: ShrunkFit, own: ElasticityRow | None) -> ShrunkOut | None:
+    """The ``shrunk`` part of the elasticities answer: ``own`` is the own-price row of the
+    shrunk fit at the asked point (None when nothing was shrunk)."""
+    row = found.shrunk
+    if row is None or own is None:
+        return None
+    values = {
+        "value": own.value,
+        "std_error": own.std_error,
+        "ci_low": own.ci_low,
+        "ci_high": own.ci_high,
+        "family_mean": row.family_mean,
+        "catalogue_mean": found.catalogue_mean,
+        "weight_on_family": row.weight_on_family,
+    }
+    finite = {k: v if v is not None and math.isfinite(v) else None for k, v in values.items()}
+    return ShrunkOut(
+        **finite, class_=own.classification, family=row.family, n_products=found.n_products
     )
