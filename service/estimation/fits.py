@@ -192,7 +192,8 @@ def fit_product(
     with library_errors(
         subject=cannot, sku=sku, gate_min_observations=settings.gate_min_observations
     ):
-        fit = fit_demand(history, model_spec)
+        active = active_row(session, product_id=product.id)
+        fit = fit_demand(history, model_spec, previous_form=active.form if active else None)
         if model_spec.pooling == "family" and product.family:
             fit = pool_with_family(session, product=product, fit=fit, spec=model_spec)
     (outcome,) = fit_store.activate(

@@ -19,8 +19,8 @@ from collections import deque
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import Text, cast, func, or_, select, true
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy import Text, and_, cast, func, or_, select, true
+from sqlalchemy.orm import Session, aliased, sessionmaker
 
 from models import DemandFit, FitFailure, History, ModelSpec, fit_many
 from service.catalogue.ingest import cyclic_gc_paused
@@ -31,6 +31,7 @@ from service.core.tables import FitRow, JobRow, ProductRow, as_utc
 from service.estimation import fit_store
 from service.estimation.batch_reads import Task, lane, read_batch, read_lane
 from service.estimation.fit_store import encode_result
+from service.estimation.gates import ACTIVE
 from service.estimation.refit_batches import Batch, Candidate, make_batches
 from service.jobs import queue as jobs
 
@@ -58,6 +59,7 @@ def select_candidates(
         .group_by(FitRow.product_id)
         .subquery()
     )
+    active = aliased(FitRow)
     rows = session.execute(
         select(
             ProductRow.id,
@@ -67,8 +69,10 @@ def select_candidates(
             cast(ProductRow.default_spec, Text).label("default_spec"),
             ProductRow.history_changed_at,
             latest_fit.c.at,
+            active.form.label("active_form"),
         )
         .outerjoin(latest_fit, latest_fit.c.product_id == ProductRow.id)
+        .outerjoin(active, and_(active.product_id == ProductRow.id, active.status == ACTIVE))
         .where(jobs.scope_filter(job.scope))
         .where(true() if within is None else ProductRow.id.between(*within))
         .order_by(ProductRow.sku)
@@ -102,7 +106,7 @@ def select_candidates(
             progress.counts["unchanged"] += 1
             continue
         spec, key = spec_of(row.default_spec)
-        chosen.append(Candidate(row.id, row.sku, row.family, spec, key))
+        chosen.append(Candidate(row.id, row.sku, row.family, spec, key, row.active_form))
     return chosen
 
 
@@ -166,7 +170,11 @@ def run_refit(
             # Histories, fits and records are many short-lived objects without cycles:
             # collector passes over them cost about a third of a batch and free nothing.
             with cyclic_gc_paused():
-                fits = iter(fit_guarded(histories, batch.spec, families=families))
+                fits = iter(
+                    fit_guarded(
+                        histories, batch.spec, families=families, previous_forms=earlier(batch)
+                    )
+                )
                 results = [unread.get(c.sku) or next(fits) for c in batch.members]
                 # The records' JSON (most of a write's work) is made here, in parallel
                 # with the last batch's write on PostgreSQL.
@@ -240,31 +248,42 @@ def read_guarded(
     return histories, unread
 
 
+def earlier(batch: Batch) -> dict[str, str]:
+    """The forms of the batch's active fits, by sku (``auto`` keeps one when it is as good)."""
+    return {c.sku: c.previous_form for c in batch.members if c.previous_form is not None}
+
+
 def fit_guarded(
-    histories: Sequence[History], spec: ModelSpec, *, families: dict[str, str]
+    histories: Sequence[History],
+    spec: ModelSpec,
+    *,
+    families: dict[str, str],
+    previous_forms: dict[str, str] | None = None,
 ) -> list[DemandFit | FitFailure]:
     """``fit_many``, except that a product that cannot be fitted (numbers that defeat
     double precision, or any other error of its own) becomes a failure of its own
     instead of stopping the whole batch."""
-    try:
+
+    def fit(part: Sequence[History]) -> list[DemandFit | FitFailure]:
         with strict_floats():
-            return fit_many(histories, spec, families=families)
+            return fit_many(part, spec, families=families, previous_forms=previous_forms)
+
+    try:
+        return fit(histories)
     except Exception as exc:
         if is_outage(exc):
             raise
     failures: dict[str, FitFailure] = {}
     for history in histories:
         try:
-            with strict_floats():
-                fit_many([history], spec, families=families)
+            fit([history])
         except Exception as exc:
             if is_outage(exc):
                 raise
             failures[history.sku] = FitFailure(history.sku, failure_reason(exc), type(exc).__name__)
     rest = [h for h in histories if h.sku not in failures]
     try:
-        with strict_floats():
-            fitted = iter(fit_many(rest, spec, families=families))
+        fitted = iter(fit(rest))
     except Exception as exc:  # only together do they fail: fail them all
         if is_outage(exc):
             raise

@@ -19,6 +19,9 @@ class Candidate:
     spec: dict[str, Any]
     # The spec as canonical JSON: products whose keys are equal are fitted together.
     key: str = ""
+    # The form of the product's active fit, kept by `auto` when the scores cannot tell it
+    # from the best (see docs/estimation.md, Choosing the form).
+    previous_form: str | None = None
 
 
 @dataclass(frozen=True)

@@ -22,6 +22,7 @@ from service.core.settings import Settings
 from service.estimation import fit_store
 from service.estimation.batch_reads import Task, lane, read_batch
 from service.estimation.refit import (
+    earlier,
     encode_guarded,
     fit_guarded,
     read_guarded,
@@ -130,7 +131,11 @@ def _run_batches(
                 families = {c.sku: c.family or "" for c in batch.members}
                 started = time.perf_counter()
                 with cyclic_gc_paused():
-                    fits = iter(fit_guarded(histories, batch.spec, families=families))
+                    fits = iter(
+                        fit_guarded(
+                            histories, batch.spec, families=families, previous_forms=earlier(batch)
+                        )
+                    )
                     results = [unread.get(c.sku) or next(fits) for c in batch.members]
                     results, texts = encode_guarded(results)
                 clock.fit += time.perf_counter() - started
