@@ -33,6 +33,7 @@ from service.jobs import schedules
 from service.jobs.worker import JobRunner, Worker
 from service.pricing import recommendations as pricing_service
 from service.pricing import routes as pricing
+from service.pricing import rule_routes
 from service.ui import routes as ui
 from service.ui.links import STATIC_URL
 
@@ -109,6 +110,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         fits.router,
         price_tests.router,
         pricing.router,
+        rule_routes.router,
         jobs.router,
         keys.router,
         ui.router,

@@ -229,6 +229,39 @@ class AuditEntryRow(Base):
     details: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
 
 
+class JurisdictionRuleRow(Base):
+    """A jurisdiction's pricing rule as a person entered it, for a product, a family or
+    the whole catalogue: applied by the optimiser and checked again at approval. Ended
+    (``ended_at``), never deleted, so that what was in effect stays known."""
+
+    __tablename__ = "jurisdiction_rules"
+    __table_args__ = (
+        CheckConstraint(
+            "kind IN ('no_sale_below_cost', 'emergency_increase_cap', 'min_change_interval', "
+            "'prior_price_cap')",
+            name="kind",
+        ),
+        CheckConstraint("applies_to IN ('product', 'family', 'catalogue')", name="applies_to"),
+        Index("ix_jurisdiction_rules_applies_to_target", "applies_to", "target"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    name: Mapped[str] = mapped_column(String(100))
+    kind: Mapped[str] = mapped_column(String(32))
+    applies_to: Mapped[str] = mapped_column(String(16))
+    target: Mapped[str | None] = mapped_column(String(64))
+    max_increase_pct: Mapped[float | None] = mapped_column(Float)
+    window_days: Mapped[int | None] = mapped_column(Integer)
+    min_interval_days: Mapped[int | None] = mapped_column(Integer)
+    starts_on: Mapped[dt.date | None] = mapped_column(Date)
+    ends_on: Mapped[dt.date | None] = mapped_column(Date)
+    note: Mapped[str | None] = mapped_column(String(500))
+    created_by_key_id: Mapped[str | None] = mapped_column(String(16))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+    ended_at: Mapped[dt.datetime | None] = mapped_column(DateTime(timezone=True))
+    ended_by_key_id: Mapped[str | None] = mapped_column(String(16))
+
+
 class JobRow(Base):
     __tablename__ = "jobs"
 
