@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -37,6 +37,7 @@ from models import (
     PriceConstraints,
     fit_demand,
     generate_catalogue,
+    shrink_own_price,
 )
 from models._typing import FloatArray
 from models.scenario import COVARIATES, LOG_COVARIATES, ScenarioProduct
@@ -61,6 +62,21 @@ class Case:
     true_profit: ProfitCurve
     true_elasticity: float
     prior: tuple[float, float]
+    family: str | None = None
+    shrunk: DemandFit | None = None
+
+
+def with_shrinkage(cases: list[Case]) -> list[Case]:
+    """The cases with each accepted fit's shrunk copy (own-price elasticities shrunk toward
+    their family and the catalogue by :func:`models.shrink_own_price`)."""
+    accepted = [c for c in cases if c.fit is not None]
+    if len(accepted) < 3:
+        return cases
+    fits = [c.fit for c in accepted if c.fit is not None]
+    families = {c.sku: c.family for c in accepted if c.family is not None}
+    result = shrink_own_price(fits, families=families or None)
+    shrunk = {f.sku: f for f in result.fits}
+    return [replace(c, shrunk=shrunk.get(c.sku)) if c.fit is not None else c for c in cases]
 
 
 def _fit_or_refusal(history: History, spec: ModelSpec) -> tuple[DemandFit | None, str | None]:
@@ -132,12 +148,12 @@ def _tea_case(product: ScenarioProduct) -> Case:
         true_profit=profit,
         true_elasticity=elasticity,
         prior=_tea_prior(product),
+        family=product.family,
     )
 
 
 def tea_shop_cases(seed: int) -> Iterator[Case]:
-    for product in generate_catalogue(seed).products:
-        yield _tea_case(product)
+    yield from with_shrinkage([_tea_case(p) for p in generate_catalogue(seed).products])
 
 
 # ---------------------------------------------------------------- the market-share shop
@@ -249,5 +265,4 @@ def market_share_cases(
     seed: int, n_products: int = 30, *, near_best: bool = False
 ) -> Iterator[Case]:
     rng = np.random.default_rng([seed, 2026, int(near_best)])
-    for i in range(n_products):
-        yield _share_case(rng, seed, i, near_best)
+    yield from with_shrinkage([_share_case(rng, seed, i, near_best) for i in range(n_products)])

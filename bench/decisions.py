@@ -14,7 +14,9 @@ Rules compared, all measured in the same run:
 * ``point``: the fitted coefficients taken as exact (the plug-in optimum);
 * ``expected``: maximise mean profit over the estimate's distribution;
 * ``cautious``: maximise the 10th percentile of profit;
-* each of the three with the do-no-harm check (``+ check``).
+* each of the three with the do-no-harm check (``+ check``);
+* the same from fits whose own-price elasticity is shrunk toward the family and the
+  catalogue (``shrunk``, :func:`models.shrink_own_price` over each seed's accepted fits).
 
 Two ceilings, which no rule can be expected to reach:
 
@@ -57,13 +59,18 @@ from models.pricing.constraints import price_limits  # noqa: E402
 from models.pricing.curve import scenario_values  # noqa: E402
 from models.pricing.decide import PredictorLaw, predictor_law  # noqa: E402
 
-RULES: tuple[tuple[str, str, bool], ...] = (
-    ("point", "point", False),
-    ("expected", "expected", False),
-    ("cautious", "cautious", False),
-    ("point + check", "point", True),
-    ("expected + check", "expected", True),
-    ("cautious + check", "cautious", True),
+RULES: tuple[tuple[str, str, bool, bool], ...] = (
+    ("point", "point", False, False),
+    ("expected", "expected", False, False),
+    ("cautious", "cautious", False, False),
+    ("point + check", "point", True, False),
+    ("expected + check", "expected", True, False),
+    ("cautious + check", "cautious", True, False),
+    ("shrunk point", "point", False, True),
+    ("shrunk expected", "expected", False, True),
+    ("shrunk cautious", "cautious", False, True),
+    ("shrunk exp. + check", "expected", True, True),
+    ("shrunk caut. + check", "cautious", True, True),
 )
 CEILINGS = ("knows elasticity", "knows prior")
 KEEP = "keep current"
@@ -152,17 +159,18 @@ def ceilings(case: Case, law: PredictorLaw, low: float, high: float) -> dict[str
 def price_case(case: Case) -> dict[str, float]:
     """Each rule's price for one case (the current price where it refuses)."""
     prices = {KEEP: case.current_price}
-    for name, rule, check in RULES:
+    for name, rule, check, shrunk in RULES:
         prices[name] = case.current_price
-        if case.fit is None:
+        fit = case.shrunk if shrunk else case.fit
+        if fit is None:
             continue
         try:
             found = optimal_price(
-                case.fit,
+                fit,
                 unit_cost=case.unit_cost,
                 current_price=case.current_price,
                 constraints=case.constraints,
-                decision=rule,
+                decide_by=rule,
                 no_harm_check=check,
             )
         except (
@@ -210,9 +218,10 @@ def summary(scores: list[dict[str, float]]) -> list[tuple[str, float, float, flo
 
 def print_table(generator: str, scores: list[dict[str, float]], refused: int) -> None:
     print(f"\n{generator}: {len(scores)} products ({refused} refused, scored at current price)")
-    print(f"{'rule':<20}{'median %':>10}{'10th pct %':>12}{'>= 95% share':>14}{'mean %':>10}")
+    head = f"{'price chosen by':<22}{'median %':>10}{'10th pct %':>12}"
+    print(f"{head}{'>= 95% share':>14}{'mean %':>10}")
     for name, median, p10, share, mean in summary(scores):
-        print(f"{name:<20}{median:>10.1f}{p10:>12.1f}{share:>13.0f}%{mean:>10.2f}")
+        print(f"{name:<22}{median:>10.1f}{p10:>12.1f}{share:>13.0f}%{mean:>10.2f}")
 
 
 def run(generators: dict[str, Callable[[], Iterator[Case]]], total: int) -> None:

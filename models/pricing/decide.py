@@ -22,8 +22,8 @@ gives the two decision criteria in closed form, with no random draws:
 
 The value of knowing is the expected objective lost because the coefficients are not known
 exactly: the mean over the distribution of ``max_p f(p | o, b) - f(chosen | o, b)`` within
-the same allowed prices, computed by Gauss-Hermite quadrature over ``(o, b)`` (a product
-rule of ``QUADRATURE_NODES`` squared nodes).
+the same allowed prices, computed by Gauss-Hermite quadrature over ``(o, b)`` (a tensor grid
+of ``QUADRATURE_NODES`` squared nodes).
 
 The do-no-harm check keeps the current price unless the chosen price beats it in at least
 ``GAIN_CHANCE`` of the distribution's weight and the expected gain is positive; the
@@ -50,7 +50,7 @@ from models.result import DemandFit, FitWarning
 
 DECISIONS: Final = ("point", "expected", "cautious")
 CAUTIOUS_LEVEL: Final = 0.10
-"""The cautious rule maximises the profit exceeded in nine of ten outcomes (10th percentile)."""
+"""The cautious choice maximises the profit exceeded in nine of ten outcomes (10th percentile)."""
 GAIN_CHANCE: Final = 0.80
 """The do-no-harm check moves only when the new price wins in at least 80% of outcomes."""
 NO_HARM_CHECK: Final = "no_harm_check"
@@ -143,8 +143,8 @@ def predictor_law(fit: DemandFit, values: dict[str, float]) -> PredictorLaw | No
     )
 
 
-def _criterion(law: PredictorLaw, rule: str, cost: float) -> object:
-    if rule == "expected":
+def _criterion(law: PredictorLaw, decide_by: str, cost: float) -> object:
+    if decide_by == "expected":
         return lambda p: law.expected(np.asarray(p, dtype=np.float64), cost)
     return lambda p: law.quantile(np.asarray(p, dtype=np.float64), cost, CAUTIOUS_LEVEL)
 
@@ -157,7 +157,7 @@ def _search_limits(iv: Interval, reference: float) -> tuple[float, float]:
 
 def best_price(
     law: PredictorLaw,
-    rule: str,
+    decide_by: str,
     cost: float,
     iv: Interval,
     *,
@@ -165,8 +165,8 @@ def best_price(
     allowed: FloatArray | None,
     hint: float,
 ) -> float:
-    """The price maximising the rule's criterion on the allowed prices or the interval."""
-    score = _criterion(law, rule, cost)
+    """The price maximising the criterion of ``decide_by`` on the allowed prices or the interval."""
+    score = _criterion(law, decide_by, cost)
     if allowed is not None:
         values = np.asarray(score(allowed))  # type: ignore[operator]
         top = float(values.max())
@@ -206,7 +206,7 @@ def decision_figures(
     *,
     sku: str,
     form: str,
-    rule: str,
+    decide_by: str,
     cost: float,
     iv: Interval,
     reference: float,
@@ -231,8 +231,8 @@ def decision_figures(
         gain = float(weights @ diff)
         chance = float(weights @ (diff > 0.0))
     return PriceDecision(
-        rule=rule,
-        cautious_level=CAUTIOUS_LEVEL if rule == "cautious" else None,
+        decide_by=decide_by,
+        cautious_level=CAUTIOUS_LEVEL if decide_by == "cautious" else None,
         expected_objective=float(law.expected(np.array(chosen), cost)),
         value_of_knowing=float(weights @ loss),
         expected_gain=gain,
@@ -259,10 +259,10 @@ def no_harm(figures: PriceDecision) -> bool:
     return figures.expected_gain > 0.0 and figures.chance_of_gain >= GAIN_CHANCE
 
 
-def check_decision(rule: str) -> None:
-    if rule not in DECISIONS:
+def check_decision(decide_by: str) -> None:
+    if decide_by not in DECISIONS:
         raise PricingInputError(
-            f"decision must be one of {', '.join(repr(d) for d in DECISIONS)}; got {rule!r}"
+            f"decide_by must be one of {', '.join(repr(d) for d in DECISIONS)}; got {decide_by!r}"
         )
 
 
@@ -271,7 +271,7 @@ def choose(
     values: dict[str, float],
     iv: Interval,
     *,
-    rule: str,
+    decide_by: str,
     no_harm_check: bool,
     cost: float,
     current_price: float | None,
@@ -279,7 +279,7 @@ def choose(
     allowed: FloatArray | None,
     point_price: float,
 ) -> tuple[float, PriceDecision | None, list[FitWarning]]:
-    """The price the rule picks (the do-no-harm check applied), its figures and notes.
+    """The price ``decide_by`` picks (the do-no-harm check applied), its figures and notes.
 
     Without a usable covariance the point price stands and a warning says why.
     """
@@ -291,9 +291,9 @@ def choose(
         )
         return point_price, None, [notes.uncertainty_unavailable(reason)]
     price = point_price
-    if rule != "point":
+    if decide_by != "point":
         price = best_price(
-            law, rule, cost, iv, reference=reference, allowed=allowed, hint=point_price
+            law, decide_by, cost, iv, reference=reference, allowed=allowed, hint=point_price
         )
 
     def figures(chosen: float) -> PriceDecision:
@@ -301,7 +301,7 @@ def choose(
             law,
             sku=fit.sku,
             form=fit.form,
-            rule=rule,
+            decide_by=decide_by,
             cost=cost,
             iv=iv,
             reference=reference,

@@ -71,7 +71,7 @@ class PriceDecision:
 
     Attributes
     ----------
-    rule : str
+    decide_by : str
         ``"point"`` (fitted coefficients taken as exact), ``"expected"`` (best mean
         objective over the estimate's distribution) or ``"cautious"`` (best low quantile).
     cautious_level : float or None
@@ -92,7 +92,7 @@ class PriceDecision:
         The do-no-harm check kept the current price: the move did not win clearly enough.
     """
 
-    rule: str
+    decide_by: str
     cautious_level: float | None
     expected_objective: float
     value_of_knowing: float
@@ -141,9 +141,9 @@ class PriceRecommendation:
         Prices the constraints allow, before the grid (None: no upper limit). In a
         family, the product's own price limits only (units limits, ladder rules and
         the index cap couple the products).
-    decision : PriceDecision or None
-        The decision rule and the value of knowing (None when the fit's covariance is
-        unusable, or in a family).
+    decision_figures : PriceDecision or None
+        How the price was chosen under uncertainty and the value of knowing (None when
+        the fit's covariance is unusable, or in a family).
     uncertainty : PriceUncertainty or None
         In a family, ``profit_interval`` and ``prob_better_than_current`` concern this
         product's own figures at the joint prices (the family's are in the total).
@@ -186,7 +186,7 @@ class PriceRecommendation:
     search: str
     search_steps: int
     summary: str
-    decision: PriceDecision | None = None
+    decision_figures: PriceDecision | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-safe mapping (no NaN or infinity)."""
@@ -213,7 +213,9 @@ class PriceRecommendation:
                 "search": self.search,
                 "search_steps": self.search_steps,
                 "summary": self.summary,
-                "decision": None if self.decision is None else self.decision.to_dict(),
+                "decision_figures": (
+                    None if self.decision_figures is None else self.decision_figures.to_dict()
+                ),
             }
         )
         return out

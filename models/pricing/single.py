@@ -209,7 +209,7 @@ def optimal_price(
     curve_points: int = 0,
     allow_wrong_sign: bool = False,
     money: MoneyText = plain_money,
-    decision: str = "point",
+    decide_by: str = "point",
     no_harm_check: bool = False,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
@@ -241,11 +241,11 @@ def optimal_price(
         Optimise even when the own-price effect has the wrong sign (is not negative).
     money : callable
         Writes an amount of money in the warnings (default: :func:`~models.money.plain_money`).
-    decision : {"point", "expected", "cautious"}
+    decide_by : {"point", "expected", "cautious"}
         How the price is chosen from the estimate: ``point`` takes the fitted coefficients
         as exact; ``expected`` maximises the mean profit (or revenue) over the estimate's
         normal distribution; ``cautious`` maximises its 10th percentile. See
-        :mod:`models.pricing.decide`; every rule reports the value of knowing.
+        :mod:`models.pricing.decide`; every choice reports the value of knowing.
     no_harm_check : bool
         Keep the current price unless the chosen one wins on average and in at least 80%
         of the estimate's distribution (needs a current price the constraints allow).
@@ -285,7 +285,7 @@ def optimal_price(
     current_price = check_value("current_price", current_price, positive=True)
     check_draws(uncertainty_draws)
     check_curve_points(curve_points)
-    check_decision(decision)
+    check_decision(decide_by)
     constraints = constraints or PriceConstraints()
     if objective == "profit" and unit_cost is None:
         raise MissingUnitCostError([fit.sku], "objective=profit")
@@ -326,7 +326,7 @@ def optimal_price(
         fit,
         values,
         iv,
-        rule=decision,
+        decide_by=decide_by,
         no_harm_check=no_harm_check,
         cost=cost,
         current_price=current_price,
@@ -403,5 +403,5 @@ def optimal_price(
         search=SEARCH_WORDS[method],
         search_steps=nit,
         summary=_message(status, binding, grid_name, nit),
-        decision=decided,
+        decision_figures=decided,
     )

@@ -73,14 +73,14 @@ def limits(fit: DemandFit) -> PriceConstraints:
 def test_rule_agrees_with_brute_force_monte_carlo(form: str, rule: str) -> None:
     fit, cost = noisy_fit(form)
     constraints = limits(fit)
-    found = optimal_price(fit, unit_cost=cost, constraints=constraints, decision=rule)
+    found = optimal_price(fit, unit_cost=cost, constraints=constraints, decide_by=rule)
     low, high = found.feasible_range
     assert high is not None
     grid = brute_force(fit, cost, low, high, rule)
     # Brute force over a grid of relative spacing GRID_STEP: agreement to the grid's
     # resolution (two steps: one for the grid, one for Monte Carlo error of 2e5 draws).
     assert found.recommended.price == pytest.approx(grid.best, rel=2 * GRID_STEP)
-    point = optimal_price(fit, unit_cost=cost, constraints=constraints, decision="point")
+    point = optimal_price(fit, unit_cost=cost, constraints=constraints, decide_by="point")
     if form == "linear" and rule == "expected":
         # Mean units are linear in the coefficients (the floor at zero is far away), so
         # the expected-profit price is the point price: linearity of expectation.
@@ -95,9 +95,9 @@ def test_rule_agrees_with_brute_force_monte_carlo(form: str, rule: str) -> None:
 @pytest.mark.parametrize("form", ["log-log", "semi-log", "linear"])
 def test_value_of_knowing_agrees_with_monte_carlo(form: str) -> None:
     fit, cost = noisy_fit(form)
-    found = optimal_price(fit, unit_cost=cost, constraints=limits(fit), decision="expected")
+    found = optimal_price(fit, unit_cost=cost, constraints=limits(fit), decide_by="expected")
     low, high = found.feasible_range
-    assert high is not None and found.decision is not None
+    assert high is not None and found.decision_figures is not None
     rng = np.random.default_rng(7)
     draws = rng.multivariate_normal(fit.params, fit.cov, size=20_000, method="eigh")
     curve = DemandCurve.from_fit(fit, params=draws)
@@ -107,8 +107,8 @@ def test_value_of_knowing_agrees_with_monte_carlo(form: str) -> None:
     monte_carlo = float(np.mean(best - at_chosen))
     # E[max_p f(p | theta) - f(chosen | theta)] by Monte Carlo (definition of the expected
     # value of perfect information); 2e4 draws and a 1201-point grid: agreement to 3%.
-    assert found.decision.value_of_knowing == pytest.approx(monte_carlo, rel=0.03)
-    assert found.decision.value_of_knowing > 0.0
+    assert found.decision_figures.value_of_knowing == pytest.approx(monte_carlo, rel=0.03)
+    assert found.decision_figures.value_of_knowing > 0.0
 
 
 def test_point_rule_keeps_the_plug_in_optimum() -> None:
@@ -119,20 +119,20 @@ def test_point_rule_keeps_the_plug_in_optimum() -> None:
     units = 1000.0 * price**-4.0
     h = History("TEA-9", periods, price, units, np.full(30, np.nan), np.ones(30, bool))
     fit = fit_demand(h, ModelSpec(form="log-log"))
-    found = optimal_price(fit, unit_cost=9.0, decision="point")
+    found = optimal_price(fit, unit_cost=9.0, decide_by="point")
     # Constant elasticity -4 and cost 9: the markup rule p = c * e / (1 + e) = 12
     # (Lerner index; any microeconomics text, from memory).
     assert found.recommended.price == pytest.approx(12.0, rel=1e-9)
-    assert found.decision is not None and found.decision.rule == "point"
+    assert found.decision_figures is not None and found.decision_figures.decide_by == "point"
     # An exact fit leaves no uncertainty: nothing to gain from knowing more.
-    assert found.decision.value_of_knowing == pytest.approx(0.0, abs=1e-6)
+    assert found.decision_figures.value_of_knowing == pytest.approx(0.0, abs=1e-6)
 
 
 def test_no_harm_check_keeps_the_current_price_when_the_move_is_unclear() -> None:
     fit, cost = noisy_fit("log-log")
     constraints = limits(fit)
-    point = optimal_price(fit, unit_cost=cost, constraints=constraints, decision="point")
-    assert point.decision is not None
+    point = optimal_price(fit, unit_cost=cost, constraints=constraints, decide_by="point")
+    assert point.decision_figures is not None
     # A current price just off the point optimum: moving gains little and wins in about
     # half the distribution, so the check holds the current price.
     current = point.recommended.price * 1.01
@@ -141,11 +141,11 @@ def test_no_harm_check_keeps_the_current_price_when_the_move_is_unclear() -> Non
         unit_cost=cost,
         current_price=current,
         constraints=constraints,
-        decision="expected",
+        decide_by="expected",
         no_harm_check=True,
     )
     assert held.recommended.price == current
-    assert held.decision is not None and held.decision.held_current
+    assert held.decision_figures is not None and held.decision_figures.held_current
     assert held.binding_constraints == ("no_harm_check",)
     # Far from the optimum the move wins in (nearly) every outcome and goes ahead.
     far = optimal_price(
@@ -153,11 +153,14 @@ def test_no_harm_check_keeps_the_current_price_when_the_move_is_unclear() -> Non
         unit_cost=cost,
         current_price=point.recommended.price * 0.7,
         constraints=constraints,
-        decision="expected",
+        decide_by="expected",
         no_harm_check=True,
     )
-    assert far.decision is not None and not far.decision.held_current
-    assert far.decision.chance_of_gain is not None and far.decision.chance_of_gain >= 0.8
+    assert far.decision_figures is not None and not far.decision_figures.held_current
+    assert (
+        far.decision_figures.chance_of_gain is not None
+        and far.decision_figures.chance_of_gain >= 0.8
+    )
     assert far.recommended.price > point.recommended.price * 0.8
 
 
@@ -202,7 +205,7 @@ def test_cautious_price_moves_toward_the_current_price_as_uncertainty_grows(
             unit_cost=cost,
             current_price=current,
             constraints=constraints,
-            decision="cautious",
+            decide_by="cautious",
         )
         return found.recommended.price
 
