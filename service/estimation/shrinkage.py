@@ -55,17 +55,17 @@ class ShrinkageCache:
 
     def __init__(self, size: int = _KEPT) -> None:
         self.size = size
-        self._items: OrderedDict[Key, Shrinkage | str] = OrderedDict()
+        self._items: OrderedDict[Key, CatalogueShrinkage] = OrderedDict()
         self._lock = threading.Lock()
 
-    def get(self, key: Key) -> Shrinkage | str | None:
+    def get(self, key: Key) -> CatalogueShrinkage | None:
         with self._lock:
             found = self._items.get(key)
             if found is not None:
                 self._items.move_to_end(key)
             return found
 
-    def put(self, key: Key, value: Shrinkage | str) -> None:
+    def put(self, key: Key, value: CatalogueShrinkage) -> None:
         with self._lock:
             self._items[key] = value
             while len(self._items) > self.size:
@@ -105,7 +105,16 @@ def _restore(session: Session, ids: Sequence[int]) -> dict[int, DemandFit | None
     return out
 
 
-def catalogue_shrinkage(session: Session) -> Shrinkage | str:
+@dataclass(frozen=True)
+class CatalogueShrinkage:
+    """Shrinkage over every active fit (or why there is none) and the fits it used, by sku."""
+
+    result: Shrinkage | None
+    reason: str | None
+    fit_ids: dict[str, int]
+
+
+def catalogue_shrinkage(session: Session) -> CatalogueShrinkage:
     """Shrinkage over every active fit, or the reason there is none (kept per set of fits)."""
     active = _active_fits(session)
     key: Key = tuple(
@@ -117,13 +126,13 @@ def catalogue_shrinkage(session: Session) -> Shrinkage | str:
     restored = _restore(session, [fit_id for fit_id, *_ in active])
     fits = [f for fit_id, *_ in active if (f := restored.get(fit_id)) is not None]
     families = {sku: family for _, _, sku, family in active if family}
-    result: Shrinkage | str
+    ids = {sku: fit_id for fit_id, _, sku, _ in active}
     try:
-        result = shrink_own_price(fits, families=families)
+        found = CatalogueShrinkage(shrink_own_price(fits, families=families), None, ids)
     except ValueError as error:
-        result = str(error)
-    shrinkage_cache.put(key, result)
-    return result
+        found = CatalogueShrinkage(None, str(error), ids)
+    shrinkage_cache.put(key, found)
+    return found
 
 
 def shrunk_active_fit(session: Session, *, product: ProductRow) -> ShrunkFit:
@@ -133,17 +142,25 @@ def shrunk_active_fit(session: Session, *, product: ProductRow) -> ShrunkFit:
     no active fit; a catalogue that cannot be shrunk gives the product's own fit with
     the reason.
     """
-    fit_id, own = active_fit(session, product)
-    found = catalogue_shrinkage(session)
-    if isinstance(found, str):
-        return ShrunkFit(fit_id, own, own, None, None, 0, reason=found)
+    for _ in range(2):  # a fit activated between the two reads: read both again, once
+        fit_id, own = active_fit(session, product)
+        found = catalogue_shrinkage(session)
+        if found.fit_ids.get(product.sku) == fit_id:
+            break
+    else:
+        reason = "the catalogue's active fits changed while they were read; ask again"
+        return ShrunkFit(fit_id, own, own, None, None, 0, reason)
+    result = found.result
+    if result is None:
+        return ShrunkFit(fit_id, own, own, None, None, 0, reason=found.reason)
     try:
-        row = found.product(product.sku)
-        fit = found.fit(product.sku)
+        row = result.product(product.sku)
+        fit = result.fit(product.sku)
     except KeyError:
-        reason = f"the own-price elasticity of {product.sku!r} has no finite standard error"
-        return ShrunkFit(fit_id, own, own, None, found.catalogue_mean, len(found.products), reason)
-    return ShrunkFit(fit_id, own, fit, row, found.catalogue_mean, len(found.products))
+        reason = f"the own-price elasticity of {product.sku!r} could not be read from its fit"
+        count = len(result.products)
+        return ShrunkFit(fit_id, own, own, None, result.catalogue_mean, count, reason)
+    return ShrunkFit(fit_id, own, fit, row, result.catalogue_mean, len(result.products))
 
 
 def own_row_at(found: ShrunkFit, *, at: str) -> ElasticityRow | None:

@@ -124,3 +124,16 @@ def test_too_few_fits_give_no_shrunk_value(
         assert client.post(f"/v1/products/{sku}/fits", headers=headers).status_code == 201
     body = client.get("/v1/products/TEA-002/elasticities", headers=headers).json()
     assert body["shrunk"] is None and body["elasticities"][0]["value"] is not None
+
+
+def test_a_fit_activated_while_reading_gives_the_own_answer(
+    shop: TestClient, headers: dict[str, str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from service.estimation import shrinkage
+
+    # The catalogue's snapshot names another fit for the product, on both reads.
+    stale = shrinkage.CatalogueShrinkage(None, None, {"TEA-022": -1})
+    monkeypatch.setattr(shrinkage, "catalogue_shrinkage", lambda session: stale)
+    answer = shop.get("/v1/products/TEA-022/elasticities", headers=headers)
+    assert answer.status_code == 200
+    assert answer.json()["shrunk"] is None and answer.json()["elasticities"][0]["value"]
