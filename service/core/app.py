@@ -26,6 +26,7 @@ from service.core.db import make_engine, make_no_wait_factory, make_session_fact
 from service.core.group_commit import GroupWriter
 from service.core.limits import BodySizeLimit
 from service.core.settings import Settings, get_settings
+from service.estimation import outcome_routes as outcomes
 from service.estimation import price_test_routes as price_tests
 from service.estimation import routes as fits
 from service.jobs import routes as jobs
@@ -109,6 +110,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         imports.router,
         fits.router,
         price_tests.router,
+        outcomes.router,
         pricing.router,
         rule_routes.router,
         jobs.router,

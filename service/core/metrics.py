@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 
-from prometheus_client import CONTENT_TYPE_LATEST, Counter, Histogram, generate_latest
+from prometheus_client import CONTENT_TYPE_LATEST, Counter, Gauge, Histogram, generate_latest
 
 REQUESTS = Counter(
     "marginal_http_requests_total", "HTTP requests answered", ["method", "route", "status"]
@@ -24,6 +24,17 @@ JOB_DURATION = Histogram(
 )
 FITS = Counter(
     "marginal_fits_total", "Fits by outcome (activated, rejected, failed, unchanged)", ["outcome"]
+)
+DRIFT_CHECKS = Counter(
+    "marginal_drift_checks_total",
+    "Outcome checks of a product against its active fit, by whether drift was flagged",
+    ["flagged"],
+)
+PRODUCT_DRIFT = Gauge(
+    "marginal_product_drift",
+    "1 when the latest outcome check of a watched product flagged drift, else 0 (one series "
+    "per product that has a stored recommendation and was checked)",
+    ["sku"],
 )
 JOB_PRODUCTS = Counter(
     "marginal_job_products_total", "Products handled by jobs, by outcome", ["kind", "outcome"]
@@ -46,6 +57,11 @@ def record_job(kind: str, status: str, seconds: float, counts: Mapping[str, int]
 
 def record_fit(outcome: str) -> None:
     FITS.labels(outcome).inc()
+
+
+def record_drift_check(sku: str, flagged: bool) -> None:
+    DRIFT_CHECKS.labels("true" if flagged else "false").inc()
+    PRODUCT_DRIFT.labels(sku).set(1 if flagged else 0)
 
 
 def exposition() -> tuple[bytes, str]:

@@ -11,6 +11,7 @@ from sqlalchemy.orm import Session
 
 import models
 from models import DemandFit
+from service.estimation import outcomes
 from service.ui import chartbook, chartdata, records, words
 from service.ui.chartdata import KINDS
 from service.ui.records import ProductInfo, Recommendation, ShownFit
@@ -92,9 +93,14 @@ def _number(value: Any) -> float | None:
 
 
 def catalogue_row(
-    product: ProductInfo, shown: ShownFit | None, recommendation: Recommendation | None
+    product: ProductInfo,
+    shown: ShownFit | None,
+    recommendation: Recommendation | None,
+    drifting: bool = False,
 ) -> CatalogueRow:
     badges: list[Badge] = []
+    if drifting:
+        badges.append(words.DRIFT_BADGE)
     if shown is None:
         badges.append(
             Badge("no_fit", "not fitted", "No demand model has been fitted yet.", "caution")
@@ -211,7 +217,11 @@ def catalogue(
     ids = [p.id for p in items]
     fits = records.shown_fits(session, ids)
     recommendations = records.latest_recommendations(session, ids)
-    rows = [catalogue_row(p, fits.get(p.id), recommendations.get(p.id)) for p in items]
+    drift = outcomes.drifting(session, [p.id for p in items if p.id in recommendations])
+    rows = [
+        catalogue_row(p, fits.get(p.id), recommendations.get(p.id), drift.get(p.id, False))
+        for p in items
+    ]
     sort = sort if sort in SORT_KEYS else "sku"
     rows = sort_rows(rows, sort, descending)
     size = page_size or max(len(rows), 1)

@@ -22,6 +22,15 @@ class Badge:
     level: str
 
 
+DRIFT_BADGE = Badge(
+    "drift",
+    "outcomes drifting",
+    "Since the recommendation, units sold fell outside the fit's 95% prediction intervals "
+    "more often than they should: demand may have changed. A refit is suggested; the "
+    "product's outcomes (GET /v1/products/{sku}/outcomes) show each period.",
+    "caution",
+)
+
 # Fit warnings that question the price effect itself are cautions; the rest are notes.
 _FIT_WARNINGS = {
     "wrong_sign": ("price effect has the wrong sign", "caution"),
