@@ -92,6 +92,38 @@ def _mark_wrong_sign_allowed(settings: Settings, recommendation_id: int) -> None
     engine.dispose()
 
 
+def _add_partitions(settings: Settings, counts: dict[int, dict[str, int]]) -> None:
+    """One cluster partition per job, with the counts given (as older jobs stored them)."""
+    engine = make_engine(settings)
+    json_type = sa.JSON().with_variant(sa.dialects.postgresql.JSONB(), "postgresql")
+    table = sa.table(
+        "job_partitions",
+        *(sa.column(c, sa.Integer) for c in ("job_id", "number", "first_id", "last_id")),
+        *(sa.column(c, sa.Integer) for c in ("attempts", "batches_done", "done", "total")),
+        sa.column("status", sa.String),
+        sa.column("counts", json_type),
+        sa.column("errors", json_type),
+    )
+    with engine.begin() as conn:
+        for job_id, stored in counts.items():
+            conn.execute(
+                sa.insert(table).values(
+                    job_id=job_id,
+                    number=0,
+                    first_id=1,
+                    last_id=100,
+                    attempts=1,
+                    batches_done=1,
+                    done=1,
+                    total=1,
+                    status="succeeded",
+                    counts=stored,
+                    errors=[],
+                )
+            )
+    engine.dispose()
+
+
 def test_stored_names_move_forward_and_back(settings: Settings) -> None:
     migrate.upgrade(settings)
     demo.load(settings, seed=7)
@@ -119,6 +151,13 @@ def test_stored_names_move_forward_and_back(settings: Settings) -> None:
 
     migrate.downgrade(settings, BEFORE)
     _mark_wrong_sign_allowed(settings, recommendation_id)
+    _add_partitions(
+        settings,
+        {
+            unchanged_id: {"activated": 1, "rejected": 0, "failed": 0, "skipped": 4},
+            reprice_id: {"recommended": 2, "failed": 0, "skipped": 3},
+        },
+    )
     # Undone, the stored documents speak the older names.
     [gates] = _rows(
         settings,
@@ -180,7 +219,22 @@ def test_stored_names_move_forward_and_back(settings: Settings) -> None:
             "wrong_sign_allowed",
             "wrong_sign_draws",
         ]
+    partitions = dict(
+        zip(
+            (unchanged_id, reprice_id),
+            _rows(settings, "SELECT counts AS doc FROM job_partitions ORDER BY job_id"),
+            strict=True,
+        )
+    )
+    assert partitions[unchanged_id] == {"activated": 1, "rejected": 0, "failed": 0, "unchanged": 4}
+    assert partitions[reprice_id] == {"recommended": 2, "failed": 0, "no_active_fit": 3}
     [request] = _rows(
         settings, f"SELECT request AS doc FROM recommendations WHERE id = {recommendation_id}"
     )
     assert request["allow_wrong_sign"] is True and "force" not in request
+
+    # Undone once more, each count is skipped again, whichever kind of job it came from.
+    migrate.downgrade(settings, BEFORE)
+    back = _rows(settings, "SELECT counts AS doc FROM job_partitions ORDER BY job_id")
+    assert [c["skipped"] for c in back] == [4, 3]
+    assert not any({"unchanged", "no_active_fit"} & set(c) for c in back)
