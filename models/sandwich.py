@@ -80,8 +80,8 @@ def sandwich_meat(
     n, k = scores_design.shape[1], scores_design.shape[2]
     if cov_type in ROBUST_KINDS:
         root = robust_root(resid, cov_type, k, leverage)
-        scores = scores_design * root[:, :, None]
-        with np.errstate(invalid="ignore"):
+        with np.errstate(invalid="ignore"):  # leverage 1: an infinite root times 0 is NaN
+            scores = scores_design * root[:, :, None]
             robust: FloatArray = np.matmul(scores.transpose(0, 2, 1), scores)
         return robust
     if cov_type == "hac":
