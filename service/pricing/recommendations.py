@@ -122,6 +122,8 @@ def price_product(
             curve_points=request.curve_points,
             allow_wrong_sign=request.allow_wrong_sign,
             money=money_text(product.currency),
+            decide_by=request.decide_by,
+            no_harm_check=request.no_harm_check,
         )
     return round_recommendation(found, product.currency)
 

@@ -15,6 +15,7 @@ from pydantic import (
 
 from service.core.schemas import NAME_PATTERN, Money, PositiveMoney, Sku, Strict
 from service.estimation.schemas import WarningOut
+from service.pricing.decision_schemas import DecisionAnswer, DecisionFields
 
 Objective = Literal["profit", "revenue"]
 Percent = Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
@@ -68,7 +69,7 @@ ScenarioName = Annotated[str, StringConstraints(pattern=NAME_PATTERN)]
 ScenarioKey = Annotated[str, StringConstraints(pattern=r"^[A-Za-z0-9_][A-Za-z0-9_.-]{0,63}$")]
 
 
-class OptimalPriceRequest(Strict):
+class OptimalPriceRequest(DecisionFields, Strict):
     objective: Objective = "profit"
     constraints: ConstraintsIn = Field(default_factory=ConstraintsIn)
     scenario: dict[ScenarioName, ScenarioValue] = Field(
@@ -133,7 +134,7 @@ class CurvePointOut(BaseModel):
     feasible: bool
 
 
-class RecommendationOut(BaseModel):
+class RecommendationOut(DecisionAnswer, BaseModel):
     """A recommended price: estimates from past data, for a person to approve.
 
     Prices (current, recommended, unconstrained, the uncertainty's price interval) are
