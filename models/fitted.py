@@ -14,8 +14,8 @@ import numpy as np
 from models._typing import BoolArray, FloatArray
 from models.design import build_design
 from models.forecast import expected_units
-from models.holdout import holdout_predictions
 from models.history import History
+from models.holdout import holdout_predictions
 from models.result import DemandFit
 
 
