@@ -8,6 +8,7 @@ extrapolation warning when a price lies outside the range the fit has seen.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -60,14 +61,26 @@ def parse_point(at: str) -> str | dict[str, float]:
     return values
 
 
-def _price_warnings(fit: DemandFit, price: float | None) -> list[dict[str, Any]]:
-    if price is not None and (w := price_range_warning(fit, price)) is not None:
+MoneyText = Callable[[float], str]
+
+
+def _price_warnings(
+    fit: DemandFit, price: float | None, money: MoneyText | None
+) -> list[dict[str, Any]]:
+    """A price beyond those the fit has seen, said with amounts written by ``money``."""
+    if price is None:
+        return []
+    w = price_range_warning(fit, price) if money is None else price_range_warning(fit, price, money)
+    if w is not None:
         return [{"code": w.code, "message": w.message}]
     return []
 
 
-def elasticities_at(fit: DemandFit, *, at: str, income_like: tuple[str, ...]) -> ElasticityAnswer:
-    """The fit's elasticities at a point (see :func:`parse_point`)."""
+def elasticities_at(
+    fit: DemandFit, *, at: str, income_like: tuple[str, ...], money: MoneyText | None = None
+) -> ElasticityAnswer:
+    """The fit's elasticities at a point (see :func:`parse_point`); ``money`` writes the
+    amounts in its warnings (the product's currency)."""
     point = parse_point(at)
     known = set(fit.variable_means)
     unknown = sorted(set(point) - known) if isinstance(point, dict) else []
@@ -87,7 +100,7 @@ def elasticities_at(fit: DemandFit, *, at: str, income_like: tuple[str, ...]) ->
     cannot = "elasticities cannot be evaluated at these values"
     with library_errors(subject=cannot, spec_field="at"):
         report = elasticities(fit, at=point, income_like=income_like)
-    return ElasticityAnswer(report, _price_warnings(fit, report.point.get("price")))
+    return ElasticityAnswer(report, _price_warnings(fit, report.point.get("price"), money))
 
 
 def prediction(
@@ -98,8 +111,10 @@ def prediction(
     cross_prices: dict[str, float],
     unit_cost: float | None,
     level: float,
+    money: MoneyText | None = None,
 ) -> PredictionAnswer:
-    """Expected units (and money) at a price and driver values, with an interval."""
+    """Expected units (and money) at a price and driver values, with an interval;
+    ``money`` writes the amounts in its warnings (the product's currency)."""
     unknown = [f"covariates.{n}" for n in covariates if n not in fit.variable_means]
     unknown += [f"cross_prices.{s}" for s in cross_prices if s not in fit.variable_means]
     if unknown:
@@ -119,4 +134,4 @@ def prediction(
             unit_cost=unit_cost,
             level=level,
         )
-    return PredictionAnswer(result, _price_warnings(fit, price))
+    return PredictionAnswer(result, _price_warnings(fit, price, money))

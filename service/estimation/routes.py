@@ -25,6 +25,7 @@ from service.estimation.schemas import (
     fit_summary,
     shrunk_out,
 )
+from service.pricing.money import money_text
 
 router = APIRouter(prefix="/v1/products/{sku}", tags=["demand models"])
 
@@ -161,7 +162,12 @@ def get_elasticities(
     ] = None,
 ) -> ElasticitiesOut:
     found = shrinkage.shrunk_active_fit(session, product=product)
-    answer = answers.elasticities_at(found.own, at=at, income_like=tuple(income_like or ()))
+    answer = answers.elasticities_at(
+        found.own,
+        at=at,
+        income_like=tuple(income_like or ()),
+        money=money_text(product.currency),
+    )
     body = answer.report.to_dict()
     return ElasticitiesOut(
         sku=product.sku,
@@ -194,5 +200,6 @@ def predict(product: ReadProduct, body: PredictRequest, session: ReadSession) ->
         cross_prices=body.cross_prices,
         unit_cost=body.unit_cost if body.unit_cost is not None else product.unit_cost,
         level=body.level,
+        money=money_text(product.currency),
     )
     return PredictionOut(**answer.report.to_dict(), fit_id=fit_id, warnings=answer.warnings)

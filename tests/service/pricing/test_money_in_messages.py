@@ -78,3 +78,22 @@ def test_warnings_write_prices_in_the_currency_minor_unit(
     ).json()
     cost = _messages(yen, "cost_above_feasible_prices")
     assert "Unit cost 4,000 JPY is above every allowed price (at most 1,760 JPY)" in cost, cost
+
+
+def test_answers_about_a_price_beyond_those_seen_write_it_as_money(
+    client: TestClient, headers: dict[str, str]
+) -> None:
+    # 18.40 lies 15% above the highest price seen (16), where 160 units still sell.
+    _linear_product(client, headers, "MONEY-PRED", "EUR", 1.0)
+    predicted = client.post(
+        "/v1/products/MONEY-PRED/predict", json={"price": 18.4}, headers=headers
+    )
+    assert predicted.status_code == 200, predicted.text
+    said = _messages(predicted.json(), "price_outside_observed_range")
+    assert said.startswith("price 18.40 EUR is 15% above the highest price observed"), said
+    assert "(8.00 EUR to 16.00 EUR)" in said
+    at = client.get(
+        "/v1/products/MONEY-PRED/elasticities", params={"at": "price:18.4"}, headers=headers
+    )
+    assert at.status_code == 200, at.text
+    assert _messages(at.json(), "price_outside_observed_range") == said
