@@ -27,7 +27,7 @@ from dataclasses import dataclass, replace
 from typing import Final
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from models._typing import FloatArray
 from models.checks import equation_text
@@ -298,36 +298,42 @@ def shrunk_fit(fit: DemandFit, shrunk: ShrunkElasticity) -> DemandFit:
 
 
 def _with_coefficients(fit: DemandFit, beta: FloatArray, cov: FloatArray) -> DemandFit:
+    """The fit with new coefficients and covariance: t statistics, p-values and 95%
+    intervals recomputed (Student's t with the fit's residual degrees of freedom, or the
+    normal for fits that use it), all coefficients at once."""
     se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_stat = np.where(se > 0, beta / se, np.nan)
     if fit.use_t:
-        crit = float(stats.t.ppf(0.975, fit.df_resid))
-        tail = stats.t.sf
+        crit = float(special.stdtrit(fit.df_resid, 0.975))
+        p_value = 2.0 * special.stdtr(fit.df_resid, -np.abs(t_stat))
     else:
-        crit = float(stats.norm.ppf(0.975))
-        tail = stats.norm.sf
-    rows = []
-    for row, estimate, error in zip(fit.coefficients, beta.tolist(), se.tolist(), strict=True):
-        t_stat = estimate / error if error > 0 else float("nan")
-        p_value = (
-            float(2.0 * (tail(abs(t_stat), fit.df_resid) if fit.use_t else tail(abs(t_stat))))
-            if np.isfinite(t_stat)
-            else float("nan")
+        crit = float(special.ndtri(0.975))
+        p_value = 2.0 * special.ndtr(-np.abs(t_stat))
+    columns = zip(
+        fit.coefficients,
+        beta.tolist(),
+        se.tolist(),
+        t_stat.tolist(),
+        p_value.tolist(),
+        strict=True,
+    )
+    rows = tuple(
+        Coefficient(
+            term=row.term,
+            estimate=estimate,
+            std_error=error,
+            t_stat=t,
+            p_value=p,
+            ci_low=estimate - crit * error,
+            ci_high=estimate + crit * error,
+            vif=row.vif,
         )
-        rows.append(
-            Coefficient(
-                term=row.term,
-                estimate=estimate,
-                std_error=error,
-                t_stat=t_stat,
-                p_value=p_value,
-                ci_low=estimate - crit * error,
-                ci_high=estimate + crit * error,
-                vif=row.vif,
-            )
-        )
+        for row, estimate, error, t, p in columns
+    )
     return replace(
         fit,
-        coefficients=tuple(rows),
+        coefficients=rows,
         covariance=tuple(tuple(r) for r in cov.tolist()),
         equation=equation_text(fit.form, fit.terms, beta.tolist()),
     )

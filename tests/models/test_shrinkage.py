@@ -234,3 +234,22 @@ def test_an_unreadable_fit_is_left_out_alone(
     del lone[fits[1].sku]
     row = shrink_own_price(fits, families=lone).product(fits[1].sku)
     assert row.family is None and row.shrunk_std_error < row.std_error
+
+
+def test_a_copy_with_the_same_numbers_reproduces_the_coefficient_table(
+    catalogue_fits: tuple[list[models.DemandFit], dict[str, str]],
+) -> None:
+    from models.shrinkage import _with_coefficients
+
+    # The shrunk copy's t statistics, p-values and intervals are recomputed by the same
+    # rules the fit used (Student's t with its residual degrees of freedom, or the normal):
+    # given the fit's own numbers they give back its own table.
+    fits, _ = catalogue_fits
+    for fit in fits:
+        same = _with_coefficients(fit, fit.params, fit.cov)
+        for ours, theirs in zip(same.coefficients, fit.coefficients, strict=True):
+            assert ours.estimate == theirs.estimate
+            assert ours.std_error == pytest.approx(theirs.std_error, rel=1e-12)
+            assert ours.p_value == pytest.approx(theirs.p_value, rel=1e-6, abs=1e-300)
+            assert ours.ci_low == pytest.approx(theirs.ci_low, rel=1e-9)
+            assert ours.ci_high == pytest.approx(theirs.ci_high, rel=1e-9)
