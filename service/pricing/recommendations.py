@@ -33,7 +33,9 @@ from service.core.errors import (
 )
 from service.core.tables import ProductRow, RecommendationRow, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
+from service.pricing import rule_limits
 from service.pricing.money import money_text, round_recommendation
+from service.pricing.rule_limits import RuleLimits
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
 
 
@@ -68,6 +70,14 @@ def price_constraints(product: PricedProduct, rules: ConstraintsIn) -> PriceCons
         return PriceConstraints(**values)
 
 
+def with_rules(constraints: PriceConstraints, rules: RuleLimits | None) -> PriceConstraints:
+    """The constraints with the jurisdiction rules' limits added under the rules' names."""
+    if rules is None or not rules.limits:
+        return constraints
+    with library_errors():
+        return replace(constraints, named_limits=rules.named_limits())
+
+
 def current_price(product: PricedProduct, fit: DemandFit, given: float | None) -> float | None:
     if given is not None:
         return given
@@ -99,10 +109,12 @@ def price_product(
     request: OptimalPriceRequest,
     *,
     scenario: dict[str, float] | None = None,
+    rules: RuleLimits | None = None,
 ) -> PriceRecommendation:
     """One product's optimal price under the request's rules, the product's own terms
     filling what the request leaves out (the one place a single price is worked out);
     prices in the currency's minor unit (:func:`~service.pricing.money.round_recommendation`).
+    ``rules``: the limits of the jurisdiction rules in effect, as named limits.
 
     Raises domain errors: :class:`~service.core.errors.WrongSign` when the fit says
     demand rises with price (unless ``allow_wrong_sign``),
@@ -115,7 +127,7 @@ def price_product(
             objective=request.objective,
             unit_cost=request.unit_cost if request.unit_cost is not None else product.unit_cost,
             current_price=current_price(product, fit, request.current_price),
-            constraints=price_constraints(product, request.constraints),
+            constraints=with_rules(price_constraints(product, request.constraints), rules),
             scenario=request.scenario if scenario is None else scenario,
             uncertainty_draws=request.uncertainty_draws,
             seed=request.seed,
@@ -144,14 +156,20 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
     """One product's recommendation (not yet stored: see :func:`store`)."""
     product, fit_id, fit = product_with_active_fit(session, sku)
     check_scenario(fit, body.scenario)
-    result = price_product(fit, product, body)
+    rules = rule_limits.limits_for(
+        session,
+        rule_limits.product_facts(session, product.id),
+        unit_cost=body.unit_cost,
+        current_price=current_price(product, fit, body.current_price),
+    )
+    result = price_product(fit, product, body, rules=rules)
     return Priced(
         product_id=product.id,
         sku=product.sku,
         fit_id=fit_id,
         objective=body.objective,
         request=body.model_dump(),
-        result=result.to_dict(),
+        result=rule_limits.split_binding(result.to_dict(), rules),
     )
 
 
@@ -259,6 +277,16 @@ def recommend_family(
             prefix=f"scenario.{sku}",
         )
     order = [(a, b) for a, b in body.order if a in fits and b in fits]
+    rules = {
+        s: rule_limits.limits_for(
+            session,
+            rule_limits.ProductFacts(
+                by_sku[s].id, s, family, by_sku[s].unit_cost, by_sku[s].current_price
+            ),
+            current_price=current_price(by_sku[s], fits[s], None),
+        )
+        for s in fits
+    }
     with library_errors(subject="no prices can be recommended from these fits", spec_field="body"):
         result = optimal_family_prices(
             fits,
@@ -266,7 +294,10 @@ def recommend_family(
             unit_costs={s: by_sku[s].unit_cost for s in fits},
             current_prices={s: current_price(by_sku[s], fits[s], None) for s in fits},
             constraints={
-                s: price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints))
+                s: with_rules(
+                    price_constraints(by_sku[s], body.product_constraints.get(s, body.constraints)),
+                    rules[s],
+                )
                 for s in fits
             },
             order=order,
@@ -287,7 +318,7 @@ def recommend_family(
             fit_id=fit_ids[item["sku"]],
             objective=body.objective,
             request=request,
-            result=item,
+            result=rule_limits.split_binding(item, rules[item["sku"]]),
         )
         for item in data["products"]
     ]

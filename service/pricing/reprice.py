@@ -15,7 +15,8 @@ from service.core.tables import FitRow, JobRow, ProductRow, RecommendationRow, u
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
 from service.jobs import queue as jobs
-from service.pricing.recommendations import price_product
+from service.pricing import rule_limits, rules
+from service.pricing.recommendations import current_price, price_product
 from service.pricing.schemas import OptimalPriceRequest
 
 
@@ -95,6 +96,8 @@ def price_batch(
     others are counted as having no active fit or as failed with their reason, each
     product alone."""
     records: list[dict[str, Any]] = []
+    now = utcnow()
+    in_effect = rules.listed(session, in_effect_at=now)  # read once for the batch
     for product, fit_id, created_at in batch:
         if fit_id is None:
             progress.counts["no_active_fit"] += 1
@@ -103,7 +106,18 @@ def price_batch(
         try:
             fit = fit_cache.get(session, fit_id, created_at)
             scenario = {k: v for k, v in request.scenario.items() if k in fit.variable_means}
-            record = price_product(fit, product, request, scenario=scenario).to_dict()
+            limits = rule_limits.limits_for(
+                session,
+                rule_limits.ProductFacts(
+                    product.id, product.sku, product.family, product.unit_cost, None
+                ),
+                at=now,
+                unit_cost=request.unit_cost,
+                current_price=current_price(product, fit, request.current_price),
+                known=in_effect,
+            )
+            found = price_product(fit, product, request, scenario=scenario, rules=limits)
+            record = rule_limits.split_binding(found.to_dict(), limits)
         except WrongSign as exc:
             progress.counts["failed"] += 1
             progress.add_error(product.sku, f"refused: {exc.reason}")

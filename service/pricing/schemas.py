@@ -16,6 +16,7 @@ from pydantic import (
 from service.core.schemas import NAME_PATTERN, Money, PositiveMoney, Sku, Strict
 from service.estimation.schemas import WarningOut
 from service.pricing.decision_schemas import DecisionAnswer, DecisionFields
+from service.pricing.rule_schemas import RuleFields
 
 Objective = Literal["profit", "revenue"]
 Percent = Annotated[float, Field(strict=True, ge=0, allow_inf_nan=False)]
@@ -48,11 +49,12 @@ class ConstraintsIn(Strict):
     )
 
 
-Optimum = Literal["interior", "held_by_constraint", "no_finite_optimum"]
+Optimum = Literal["interior", "held_by_constraint", "held_by_rule", "no_finite_optimum"]
 OPTIMUM_HELP = (
     "What kind of optimum the price is: `interior` (the objective's own best price, inside "
     "the allowed prices), `held_by_constraint` (a constraint holds the price where it is; see "
-    "`binding_constraints`) or `no_finite_optimum` (the objective keeps improving toward a "
+    "`binding_constraints`), `held_by_rule` (only jurisdiction rules hold it; see "
+    "`binding_rules`) or `no_finite_optimum` (the objective keeps improving toward a "
     "bound, so the price sits on that bound)"
 )
 Search = Literal["continuous", "allowed_prices", "allowed_prices_local"]
@@ -134,7 +136,7 @@ class CurvePointOut(BaseModel):
     feasible: bool
 
 
-class RecommendationOut(DecisionAnswer, BaseModel):
+class RecommendationOut(DecisionAnswer, RuleFields):
     """A recommended price: estimates from past data, for a person to approve.
 
     Prices (current, recommended, unconstrained, the uncertainty's price interval) are
