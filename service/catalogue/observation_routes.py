@@ -62,4 +62,13 @@ def list_observations(
         session, product_id=product.id, start=start, end=end, limit=limit, after=after
     )
     next_cursor = encode_cursor({"after": rows[-1].period.isoformat()}) if more and rows else None
-    return Page[ObservationOut](items=[observation_out(r) for r in rows], next_cursor=next_cursor)
+    items = [observation_out(r) for r in rows]
+    if rows:
+        tests = observations.price_test_marks(
+            session, product_id=product.id, first=rows[0].period, last=rows[-1].period
+        )
+        for i, row in enumerate(rows):
+            mark = next((t for t, a, b in tests if a <= row.period <= b), None)
+            if mark is not None:
+                items[i] = items[i].model_copy(update={"price_test_id": mark})
+    return Page[ObservationOut](items=items, next_cursor=next_cursor)

@@ -20,7 +20,7 @@ import pyarrow.csv as pacsv
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
-from service.core.tables import ObservationRow, ProductRow, utcnow
+from service.core.tables import ObservationRow, PriceTestRow, ProductRow, utcnow
 
 # (product_id, period ISO date, price, units, unit_cost, in_stock, covariates JSON text)
 ObservationTuple = tuple[int, str, float, float, float | None, bool | None, str | None]
@@ -260,3 +260,18 @@ def count_for(session: Session, *, product_id: int) -> int:
         )
         or 0
     )
+
+
+def price_test_marks(
+    session: Session, *, product_id: int, first: dt.date, last: dt.date
+) -> list[tuple[int, dt.date, dt.date]]:
+    """The product's stored price tests that overlap ``first`` to ``last``: (id, first
+    period, last period); an observation within one's periods is its test period."""
+    rows = session.execute(
+        select(PriceTestRow.id, PriceTestRow.first_period, PriceTestRow.last_period).where(
+            PriceTestRow.product_id == product_id,
+            PriceTestRow.first_period <= last,
+            PriceTestRow.last_period >= first,
+        )
+    )
+    return [(r.id, r.first_period, r.last_period) for r in rows]

@@ -107,6 +107,10 @@ class ObservationOut(BaseModel):
     unit_cost: float | None
     in_stock: bool | None
     covariates: dict[str, float]
+    price_test_id: int | None = Field(
+        default=None,
+        description="The stored price test whose periods include this one (a test period)",
+    )
 
 
 class UpsertCounts(BaseModel):

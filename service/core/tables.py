@@ -262,6 +262,27 @@ class JurisdictionRuleRow(Base):
     ended_by_key_id: Mapped[str | None] = mapped_column(String(16))
 
 
+class PriceTestRow(Base):
+    """A stored price-test plan: its periods (first to last), the fit it came from and the
+    plan as answered. Observations whose periods fall within a plan's are its test periods."""
+
+    __tablename__ = "price_tests"
+    __table_args__ = (
+        CheckConstraint("last_period >= first_period", name="period_order"),
+        Index("ix_price_tests_product_id_first_period", "product_id", "first_period"),
+    )
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True)
+    product_id: Mapped[int] = mapped_column(ForeignKey("products.id", ondelete="CASCADE"))
+    fit_id: Mapped[int | None] = mapped_column(ForeignKey("fits.id", ondelete="SET NULL"))
+    first_period: Mapped[dt.date] = mapped_column(Date)
+    last_period: Mapped[dt.date] = mapped_column(Date)
+    n_periods: Mapped[int] = mapped_column(Integer)
+    plan: Mapped[dict[str, Any]] = mapped_column(JsonDoc)
+    created_by_key_id: Mapped[str | None] = mapped_column(String(16))
+    created_at: Mapped[dt.datetime] = mapped_column(DateTime(timezone=True), default=utcnow)
+
+
 class JobRow(Base):
     __tablename__ = "jobs"
 

@@ -2,11 +2,12 @@
 
 from __future__ import annotations
 
+import datetime as dt
 from typing import Annotated
 
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, Field, StrictBool
 
-from service.core.schemas import CovariateName, FiniteNumber, PositiveMoney, Strict
+from service.core.schemas import CovariateName, FiniteNumber, Period, PositiveMoney, Strict
 from service.estimation.price_tests import PlannedTest
 
 DESIGN = (
@@ -36,15 +37,28 @@ class PriceTestRequest(Strict):
         "fitted period's values)",
     )
     level: Annotated[float, Field(strict=True, gt=0, lt=1)] = 0.95
+    first_period: Period | None = Field(
+        default=None,
+        description="The test's first period (default: the period after the latest observed); "
+        "the others follow at the spacing of the latest observations",
+    )
+    store: StrictBool = Field(
+        default=False,
+        description="Store the plan (needs the `write` scope): observations sent for its "
+        "periods are then marked as its test periods. By default nothing is stored",
+    )
 
 
 class PlannedPeriodOut(BaseModel):
-    period: int = Field(description="1 for the test's first period, and so on")
+    index: int = Field(description="1 for the test's first period, and so on")
+    period: dt.date
     price: float
     expected_units: float
 
 
 class PriceTestOut(BaseModel):
+    id: int | None = Field(description="The stored plan's id; null when not stored")
+    created_at: dt.datetime | None = Field(description="When it was stored; null when not")
     sku: str
     currency: str
     fit_id: int
@@ -88,6 +102,8 @@ def price_test_out(planned: PlannedTest) -> PriceTestOut:
     plan = planned.plan
     units = plan.expected_units
     return PriceTestOut(
+        id=None,
+        created_at=None,
         sku=planned.sku,
         currency=planned.currency,
         fit_id=planned.fit_id,
@@ -99,8 +115,8 @@ def price_test_out(planned: PlannedTest) -> PriceTestOut:
         low_price=plan.low_price,
         high_price=plan.high_price,
         periods=[
-            PlannedPeriodOut(period=i + 1, price=p, expected_units=q)
-            for i, (p, q) in enumerate(zip(plan.prices, units, strict=True))
+            PlannedPeriodOut(index=i + 1, period=d, price=p, expected_units=q)
+            for i, (d, p, q) in enumerate(zip(planned.periods, plan.prices, units, strict=True))
         ],
         level=plan.level,
         elasticity=plan.elasticity,
@@ -114,3 +130,7 @@ def price_test_out(planned: PlannedTest) -> PriceTestOut:
         profit_given_up_upper=plan.profit_given_up_upper,
         upper_level=plan.upper_level,
     )
+
+
+class StoredPriceTests(BaseModel):
+    items: list[PriceTestOut] = Field(description="Newest first (at most 100)")

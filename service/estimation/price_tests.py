@@ -3,15 +3,18 @@ with what it should teach (a narrower own-price interval) and cost (profit given
 
 from __future__ import annotations
 
+import datetime as dt
 from dataclasses import dataclass
+from typing import Any
 
-from sqlalchemy import case, select
+from sqlalchemy import case, insert, select
 from sqlalchemy.orm import Session
 
 from models import PriceTestPlan, plan_price_test
 from service.catalogue import products
-from service.core.errors import InvalidInput, library_errors
-from service.core.tables import FitRow
+from service.core.audit import write_audit
+from service.core.errors import Conflict, ErrorItem, InvalidInput, library_errors
+from service.core.tables import FitRow, ObservationRow, PriceTestRow, utcnow
 from service.estimation import fits
 from service.estimation.gates import ACTIVE, REJECTED
 
@@ -27,6 +30,7 @@ class PlanTerms:
     max_price: float | None
     covariates: dict[str, float]
     level: float
+    first_period: dt.date | None = None
 
 
 @dataclass(frozen=True)
@@ -38,6 +42,8 @@ class PlannedTest:
     fit_status: str
     plan: PriceTestPlan
     reasons: tuple[str, ...]
+    product_id: int
+    periods: tuple[dt.date, ...]
 
 
 def plan_test(session: Session, *, sku: str, terms: PlanTerms) -> PlannedTest:
@@ -78,6 +84,8 @@ def plan_test(session: Session, *, sku: str, terms: PlanTerms) -> PlannedTest:
             level=terms.level,
         )
     return PlannedTest(
+        product_id=product.id,
+        periods=_periods(session, product.id, terms.first_period, terms.n_periods),
         sku=sku,
         currency=product.currency,
         fit_id=row.id,
@@ -102,3 +110,97 @@ def _reasons(row: FitRow, plan: PriceTestPlan) -> tuple[str, ...]:
     if high >= 0:
         out.append(f"the own-price elasticity's {plan.level:.0%} interval reaches zero or above")
     return tuple(out)
+
+
+DEFAULT_SPACING = dt.timedelta(days=7)
+
+
+def _periods(
+    session: Session, product_id: int, first: dt.date | None, n: int
+) -> tuple[dt.date, ...]:
+    """The test's periods: from ``first`` (default: the period after the latest observed),
+    spaced like the latest observations (a week when they cannot tell)."""
+    latest = list(
+        session.scalars(
+            select(ObservationRow.period)
+            .where(ObservationRow.product_id == product_id)
+            .order_by(ObservationRow.period.desc())
+            .limit(14)
+        )
+    )
+    gaps = sorted(a - b for a, b in zip(latest, latest[1:], strict=False))
+    spacing = gaps[len(gaps) // 2] if gaps else DEFAULT_SPACING
+    if first is None:
+        first = latest[0] + spacing if latest else dt.datetime.now(dt.UTC).date()
+    return tuple(first + i * spacing for i in range(n))
+
+
+@dataclass(frozen=True)
+class StoredTest:
+    id: int
+    created_at: dt.datetime
+
+
+def store(
+    session: Session, *, planned: PlannedTest, answer: dict[str, Any], key_id: str | None
+) -> StoredTest:
+    """Store a plan (one at a time per stretch of periods: a plan whose periods overlap a
+    stored one's is refused) and write the audit entry, in one transaction."""
+    first, last = planned.periods[0], planned.periods[-1]
+    overlapping = session.scalar(
+        select(PriceTestRow.id).where(
+            PriceTestRow.product_id == planned.product_id,
+            PriceTestRow.first_period <= last,
+            PriceTestRow.last_period >= first,
+        )
+    )
+    if overlapping is not None:
+        raise Conflict(
+            f"product {planned.sku!r} already has a stored price test (id {overlapping}) over "
+            f"some of the periods {first.isoformat()} to {last.isoformat()}; choose a later "
+            "first_period",
+            errors=[ErrorItem(field="first_period", message="overlaps a stored price test")],
+        )
+    now = utcnow()
+    new_id = session.scalar(
+        insert(PriceTestRow)
+        .values(
+            product_id=planned.product_id,
+            fit_id=planned.fit_id,
+            first_period=first,
+            last_period=last,
+            n_periods=len(planned.periods),
+            plan=answer,
+            created_by_key_id=key_id,
+            created_at=now,
+        )
+        .returning(PriceTestRow.id)
+    )
+    assert new_id is not None, "INSERT ... RETURNING gives the new id"
+    write_audit(
+        session,
+        actor_key_id=key_id,
+        action="price_test.store",
+        subject=planned.sku,
+        details={
+            "price_test_id": new_id,
+            "first_period": first.isoformat(),
+            "last_period": last.isoformat(),
+            "prices": list(planned.plan.prices),
+        },
+        at=now,
+    )
+    return StoredTest(new_id, now)
+
+
+def stored(session: Session, *, sku: str) -> list[PriceTestRow]:
+    """A product's stored plans, newest first (at most 100)."""
+    product = products.get_or_raise(session, sku=sku)
+    return list(
+        session.scalars(
+            select(PriceTestRow)
+            .where(PriceTestRow.product_id == product.id)
+            .order_by(PriceTestRow.first_period.desc(), PriceTestRow.id.desc())
+            .limit(100)
+        )
+    )

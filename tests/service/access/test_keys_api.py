@@ -53,6 +53,7 @@ ROUTES = [
         {},
         "read",
     ),
+    ("GET", "/v1/products/{sku}/price-tests", "/v1/products/TEA-001/price-tests", None, "read"),
     ("GET", "/v1/products/{sku}/outcomes", "/v1/products/TEA-001/outcomes", None, "read"),
     ("GET", "/v1/families/{family}/outcomes", "/v1/families/green/outcomes", None, "read"),
     ("POST", "/v1/products/{sku}/optimal-price", "/v1/products/TEA-001/optimal-price", {}, "read"),
