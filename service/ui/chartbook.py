@@ -5,6 +5,7 @@ matplotlib is imported on the first drawing, not when the service starts.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from sqlalchemy.orm import Session
@@ -54,29 +55,43 @@ def draw_all(subject: chartdata.Subject) -> dict[str, Chart]:
     return {kind: draw(subject, kind) for kind in KINDS}
 
 
-def describe(subject: chartdata.Subject, kind: str) -> tuple[str, tuple[str, ...]]:
-    """A chart's title and summary, without drawing it (for pages that link the SVG)."""
-    from service.ui import charts_demand, charts_fit_time, charts_money
+@dataclass(frozen=True)
+class Outline:
+    """What a page says about a chart without drawing it: its title and summary, the ids
+    of the marks it draws and its note (for the caption)."""
 
-    if kind == "demand":
-        return charts_demand.demand_text(chartdata_demand.demand_inputs(subject))
-    if kind == "money":
-        return charts_money.money_text(chartdata_money.money_inputs(subject))
-    return charts_fit_time.fit_time_text(chartdata_fit_time.fit_time_inputs(subject))
+    title: str
+    summary: tuple[str, ...]
+    marks: tuple[str, ...]
+    note: str | None
 
 
-def marks(subject: chartdata.Subject, kind: str) -> tuple[tuple[str, ...], str | None]:
-    """The ids of the marks a chart draws and its note, without drawing it (for captions)."""
+def outline(subject: chartdata.Subject, kind: str) -> Outline:
+    """A chart's outline, from its inputs worked out once."""
     from service.ui import charts_demand, charts_fit_time, charts_money
 
     if kind == "demand":
         demand = chartdata_demand.demand_inputs(subject)
-        return charts_demand.demand_marks(demand), demand.note
-    if kind == "money":
+        text, marks, note = (
+            charts_demand.demand_text(demand),
+            charts_demand.demand_marks(demand),
+            demand.note,
+        )
+    elif kind == "money":
         money = chartdata_money.money_inputs(subject)
-        return charts_money.money_marks(money), money.note
-    over_time = chartdata_fit_time.fit_time_inputs(subject)
-    return charts_fit_time.fit_time_marks(over_time), over_time.note
+        text, marks, note = (
+            charts_money.money_text(money),
+            charts_money.money_marks(money),
+            money.note,
+        )
+    else:
+        over_time = chartdata_fit_time.fit_time_inputs(subject)
+        text, marks, note = (
+            charts_fit_time.fit_time_text(over_time),
+            charts_fit_time.fit_time_marks(over_time),
+            over_time.note,
+        )
+    return Outline(text[0], text[1], marks, note)
 
 
 def cached_svg(

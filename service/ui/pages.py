@@ -351,14 +351,15 @@ def chart_views(
 ) -> list[ChartView]:
     views = []
     for kind in KINDS:
-        if drawn is not None:
-            title, summary = drawn[kind].title, drawn[kind].summary
-        else:
-            title, summary = chartbook.describe(subject, kind)
+        told = chartbook.outline(subject, kind)
+        title, summary = (
+            (told.title, told.summary)
+            if drawn is None
+            else (drawn[kind].title, drawn[kind].summary)
+        )
         heading = CHART_HEADINGS[kind]
-        marks, note = chartbook.marks(subject, kind)
         period = fit_period(subject.fit.fit if subject.fit else None)
-        reading = chart_reading(marks, note, kind, period)
+        reading = chart_reading(told.marks, told.note, kind, period)
         views.append(ChartView(kind, heading, title, summary, reading))
     return views
 

@@ -154,8 +154,9 @@ def test_a_caption_names_only_marks_its_chart_draws(case: str, kind: str) -> Non
         subject = Subject(product=_product("TEA-099"), fit=None, recommendation=None, history=None)
     else:
         subject = SUBJECTS[case]()
-    marks, note = chartbook.marks(subject, kind)
-    reading = pages.chart_reading(marks, note, kind, "week")
+    told = chartbook.outline(subject, kind)
+    marks = told.marks
+    reading = pages.chart_reading(marks, told.note, kind, "week")
     drawn = gids(parse(chartbook.draw(subject, kind).svg))
     for names, sentence in pages.READINGS[kind]:
         if sentence.format(period="week") in reading:
