@@ -151,6 +151,10 @@ def normal_means(
         raise ValueError(f"at least {MIN_ESTIMATES} estimates are needed; got {y.size}")
     if not (np.all(np.isfinite(y)) and np.all(np.isfinite(s)) and np.all(s > 0.0)):
         raise ValueError("values must be finite and standard errors finite and positive")
+    with np.errstate(over="ignore", under="ignore", divide="ignore"):
+        squares_ok = np.all(np.isfinite(y * y)) and np.all(np.isfinite(1.0 / (s * s)))
+    if not squares_ok:
+        raise ValueError("values and standard errors must be small and large enough to square")
     names = [str(f) for f in sorted(set(families))] if families is not None else ["(all)"]
     two_level = len(names) >= 2
     if two_level:

@@ -36,6 +36,10 @@ from models.normal_means import MIN_ESTIMATES, NormalMeans, normal_means
 from models.result import Coefficient, DemandFit
 
 _LINEAR_STEPS: Final = 8
+LARGEST: Final = 1000.0
+"""Own-price elasticities or standard errors beyond this tell the catalogue nothing (our
+bound; real ones are within about ±10) and are left out, so that no hostile number can
+swamp the others' spreads."""
 _UNREADABLE: Final = (ValueError, KeyError, IndexError, ArithmeticError, np.linalg.LinAlgError)
 
 
@@ -155,7 +159,8 @@ def shrink_own_price(
         the catalogue mean. A sku missing from it forms a family of its own.
 
     A fit whose own-price elasticity cannot be computed (no finite value or standard
-    error) is left out (``left_out``) and returned unchanged; it never stops the others.
+    error, or either beyond ``LARGEST``) is left out (``left_out``) and returned
+    unchanged; it never stops the others.
 
     Raises
     ------
@@ -187,7 +192,7 @@ def shrink_own_price(
                 variance = float(grad @ fit.cov @ grad) if np.isfinite(value) else float("nan")
         except _UNREADABLE:
             continue
-        if np.isfinite(value) and np.isfinite(variance) and variance > 0.0:
+        if abs(value) <= LARGEST and 0.0 < variance <= LARGEST**2:
             used.append(i)
             values.append(value)
             errors.append(float(np.sqrt(variance)))

@@ -253,3 +253,22 @@ def test_a_copy_with_the_same_numbers_reproduces_the_coefficient_table(
             assert ours.p_value == pytest.approx(theirs.p_value, rel=1e-6, abs=1e-300)
             assert ours.ci_low == pytest.approx(theirs.ci_low, rel=1e-9)
             assert ours.ci_high == pytest.approx(theirs.ci_high, rel=1e-9)
+
+
+def test_numbers_beyond_any_elasticity_are_left_out(
+    catalogue_fits: tuple[list[models.DemandFit], dict[str, str]],
+) -> None:
+    fits, families = catalogue_fits
+    log_log = next(f for f in fits if f.form == "log-log")
+    j = log_log.term_names.index("ln(price)")
+    rows = list(log_log.coefficients)
+    rows[j] = replace(rows[j], estimate=-1e200)
+    hostile = replace(log_log, coefficients=tuple(rows))
+    others = [f for f in fits if f.sku != log_log.sku]
+    result = shrink_own_price([hostile, *others], families=families)
+    assert result.left_out == (hostile.sku,)
+    assert np.isfinite(result.spread_within_family) and np.isfinite(result.catalogue_mean)
+    with pytest.raises(ValueError, match="square"):
+        normal_means([1e200, 0.0, 1.0], [1.0, 1.0, 1.0])
+    with pytest.raises(ValueError, match="square"):
+        normal_means([1.0, 0.0, 1.0], [1e-200, 1.0, 1.0])
