@@ -129,7 +129,7 @@ def catalogue_shrinkage(session: Session) -> CatalogueShrinkage:
     ids = {sku: fit_id for fit_id, _, sku, _ in active}
     try:
         found = CatalogueShrinkage(shrink_own_price(fits, families=families), None, ids)
-    except ValueError as error:
+    except (ValueError, ArithmeticError) as error:  # the own answers stand without it
         found = CatalogueShrinkage(None, str(error), ids)
     shrinkage_cache.put(key, found)
     return found
