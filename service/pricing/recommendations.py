@@ -322,7 +322,9 @@ def recommend_family(
         )
         for item in data["products"]
     ]
-    answer = {k: v for k, v in data.items() if k != "products"}
+    answer = rule_limits.family_answer(
+        {k: v for k, v in data.items() if k != "products"}, [p.result for p in priced]
+    )
     return {**answer, "family": family, "excluded": excluded}, priced
 
 

@@ -236,3 +236,22 @@ def split_binding(result: dict[str, Any], limits: RuleLimits) -> dict[str, Any]:
         if grid:
             out["summary"] += f" Best of {grid}"
     return out
+
+
+def family_answer(answer: dict[str, Any], products: Sequence[dict[str, Any]]) -> dict[str, Any]:
+    """A family's answer with its products' rules told apart (see :func:`split_binding`):
+    held by rules alone when no constraint holds a product or the family, and its summary
+    naming rules as such."""
+    out = {
+        **answer,
+        "summary": str(answer.get("summary", "")).replace(PREFIX, "jurisdiction rule "),
+    }
+    kinds = {p.get("optimum") for p in products}
+    if (
+        answer.get("optimum") == "held_by_constraint"
+        and not answer.get("binding_constraints")
+        and "held_by_rule" in kinds
+        and kinds <= {"held_by_rule", "interior"}
+    ):
+        out["optimum"] = "held_by_rule"
+    return out

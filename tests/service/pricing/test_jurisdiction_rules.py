@@ -139,7 +139,10 @@ def test_a_family_rule_binds_family_prices(client: TestClient, admin: dict[str, 
     )
     answer = client.post("/v1/families/herbal/optimal-prices", json={}, headers=admin)
     assert answer.status_code == 200, answer.json()
-    for product in answer.json()["products"]:
+    body = answer.json()
+    assert body["optimum"] == "held_by_rule" and "rule:" not in body["summary"]
+    assert "jurisdiction rule Herbal prior cap" in body["summary"]
+    for product in body["products"]:
         # No price record: the current price 5.00 stands in; 10% above it is 5.50.
         assert product["recommended"]["price"] == pytest.approx(5.5)
         assert product["binding_rules"] == ["Herbal prior cap"]
