@@ -105,6 +105,10 @@ _CONSTRAINTS = {
     "observed_price_range": ("the guard against prices far from those seen", "prices seen"),
     "order": ("the order between products", "order"),
     "max_total_change_pct": ("the family's index cap", "family index cap"),
+    "no_harm_check": (
+        "the do-no-harm check (moving did not win clearly enough)",
+        "do-no-harm check",
+    ),
 }
 
 
