@@ -18,7 +18,7 @@ from models import DemandFit, DriftCheck, ExpectedOutcomes, drift_check, expecte
 from service.catalogue import products
 from service.core import metrics
 from service.core.errors import NoActiveFit, NotFound, ServiceError, library_errors
-from service.core.tables import ProductRow, RecommendationRow
+from service.core.tables import ObservationRow, ProductRow, RecommendationRow
 from service.estimation import fits, histories
 
 LEVEL = 0.95
@@ -104,16 +104,37 @@ def drifting(session: Session, product_ids: list[int]) -> dict[int, bool]:
     """Whether each given product with an active fit and a stored recommendation has its
     drift flag up (the analyst view's catalogue). A product whose outcomes cannot be read is
     left out; it never fails the others."""
-    with_recommendation = set(
-        session.scalars(
-            select(RecommendationRow.product_id)
-            .where(RecommendationRow.product_id.in_(product_ids))
-            .distinct()
+    first_recommended = (
+        select(
+            RecommendationRow.product_id.label("product_id"),
+            func.min(RecommendationRow.created_at).label("since"),
         )
+        .where(RecommendationRow.product_id.in_(product_ids))
+        .group_by(RecommendationRow.product_id)
+        .subquery()
     )
-    if not with_recommendation:
+    latest_period = (
+        select(
+            ObservationRow.product_id.label("product_id"),
+            func.max(ObservationRow.period).label("last"),
+        )
+        .where(ObservationRow.product_id.in_(product_ids))
+        .group_by(ObservationRow.product_id)
+        .subquery()
+    )
+    # Only products with periods after their first recommendation have anything to check.
+    candidates = [
+        (r.product_id, r.since, r.last)
+        for r in session.execute(
+            select(
+                first_recommended.c.product_id, first_recommended.c.since, latest_period.c.last
+            ).join(latest_period, latest_period.c.product_id == first_recommended.c.product_id)
+        )
+    ]
+    watched = [pid for pid, since, last in candidates if last > _day(since)]
+    if not watched:
         return {}
-    rows = session.scalars(select(ProductRow).where(ProductRow.id.in_(with_recommendation)))
+    rows = session.scalars(select(ProductRow).where(ProductRow.id.in_(watched)))
     out: dict[int, bool] = {}
     for product in rows:
         try:
@@ -135,7 +156,7 @@ def _watch(session: Session, product: ProductRow, fit_id: int, fit: DemandFit) -
     )
     if first is None:
         return Watched(product.sku, product.family, fit_id, None, None, (), (), None)
-    recommended_on = first.date() if isinstance(first, dt.datetime) else first
+    recommended_on = _day(first)
     fitted_until = dt.date.fromisoformat(fit.window.last_period)
     after = max(recommended_on, fitted_until)
     history = histories.load_history(session, product=product, cross_skus=fit.spec.cross_prices)
@@ -148,3 +169,10 @@ def _watch(session: Session, product: ProductRow, fit_id: int, fit: DemandFit) -
     use = watched.counted()
     check = drift_check(~seen.inside[use], allowed_rate=1 - LEVEL)
     return Watched(product.sku, product.family, fit_id, after, seen, in_stock, prices, check)
+
+
+def _day(moment: dt.datetime | dt.date) -> dt.date:
+    """The UTC date of a stored time (SQLite gives back naive UTC datetimes)."""
+    if isinstance(moment, dt.datetime):
+        return (moment if moment.tzinfo is None else moment.astimezone(dt.UTC)).date()
+    return moment
