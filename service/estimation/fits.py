@@ -17,6 +17,7 @@ from service.core.settings import Settings
 from service.core.tables import FitRow, ProductRow
 from service.estimation import fit_store, histories
 from service.estimation.fit_cache import fit_cache
+from service.estimation.fit_review import AWAITING_REVIEW
 from service.estimation.gates import ACTIVE, REJECTED
 
 
@@ -93,12 +94,23 @@ def no_active_fit(session: Session, *, product_id: int, sku: str) -> NoActiveFit
         .limit(1)
     ).first()
     fit_path = f"/v1/products/{sku}/fits"
+    if latest is not None and latest.status == AWAITING_REVIEW:
+        return NoActiveFit(
+            f"product {sku!r} has no active fit: its latest fit (version {latest.version}) "
+            "awaits a person's review; a key with the approve scope can activate it with POST "
+            f"{fit_path}/{latest.id}/activate"
+        )
     if latest is None or latest.status != REJECTED:
         return NoActiveFit(f"product {sku!r} has no active fit; fit one with POST {fit_path}")
     failed = rejected_by(latest.gates)
     names = ", ".join(name for name, _ in failed) or "a quality gate"
     remedies = [REMEDIES[name].format(sku=sku) for name, _ in failed if name in REMEDIES]
     remedies.append(f"fit again with a different spec (POST {fit_path} with a spec)")
+    remedies.append(
+        "or, if a person judges the fit usable despite the gates, activate it with a reason "
+        f"(POST {fit_path}/{latest.id}/activate, approve scope)"
+        + (", then price it with allow_wrong_sign" if "wrong_sign" in dict(failed) else "")
+    )
     return NoActiveFit(
         f"product {sku!r} has no active fit: its latest fit (version {latest.version}) was "
         f"rejected by the quality gate{'s' if len(failed) > 1 else ''} {names}. "
