@@ -20,14 +20,15 @@ from service.core.errors import InvalidInput
 from service.core.tables import ProductRow
 from service.estimation import histories
 from service.ui.records import ProductInfo, Recommendation, ShownFit
+from service.ui.words import period_word
 
 KINDS = ("demand", "money", "fit-over-time")
 PROMO_COVARIATE = "promo"
-"""A covariate of this name above zero marks a promotion week (the demo's convention)."""
+"""A covariate of this name above zero marks a promotion period (the demo's convention)."""
 DRAWN_PRICE_FACTOR = 4.0
 """A current or recommended price further than this factor from the prices the fit saw is
 named in the chart's note instead of drawn (the axis would squeeze the curves flat) and, in
-the money chart, the latest week's price stands in for it."""
+the money chart, the latest period's price stands in for it."""
 
 
 @dataclass(frozen=True)
@@ -51,6 +52,14 @@ def load_history(session: Session, product: ProductInfo, fit: ShownFit | None) -
     except InvalidInput:  # a sibling named by the spec is gone: plot without its prices
         history = histories.load_history(session, product=row)
     return history if history.n_periods else None
+
+
+def period_of(history: History | None) -> str:
+    """The word for one period of the history (day, week, month...), or "period": charts
+    of monthly or daily data must not say "week"."""
+    if history is None or history.n_periods < 2:
+        return "period"
+    return period_word(str(history.periods[0]), str(history.periods[-1]), history.n_periods)
 
 
 def near_seen_prices(fit: DemandFit, price: float | None) -> bool:

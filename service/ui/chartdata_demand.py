@@ -1,4 +1,4 @@
-"""The numbers of the demand chart: past weeks as points, the fitted curve and its band."""
+"""The numbers of the demand chart: past periods as points, the fitted curve and its band."""
 
 from __future__ import annotations
 
@@ -13,6 +13,7 @@ from service.ui.chartdata import (
     Subject,
     fit_label,
     near_seen_prices,
+    period_of,
     recommended_price,
 )
 from service.ui.records import ProductInfo, Recommendation
@@ -23,7 +24,7 @@ BAND_LEVEL = 0.95
 
 @dataclass(frozen=True)
 class PointGroup:
-    """Past weeks of one kind, as (price, units) points."""
+    """Past periods of one kind, as (price, units) points."""
 
     kind: str  # regular, promotion, stockout, outside
     label: str
@@ -33,7 +34,7 @@ class PointGroup:
 
 @dataclass(frozen=True)
 class DemandBand:
-    """Expected units over a price grid with a per-week prediction interval."""
+    """Expected units over a price grid with a per-period prediction interval."""
 
     price: np.ndarray
     expected: np.ndarray
@@ -55,10 +56,11 @@ class DemandInputs:
     scenario: dict[str, float]
     scenario_source: str
     note: str | None
+    period: str  # the word for one period of the history: day, week, month...
 
 
-def _week_kinds(history: History, fit: DemandFit | None) -> np.ndarray:
-    """Each week's kind; a stockout is marked as such even outside the fitted weeks."""
+def _period_kinds(history: History, fit: DemandFit | None) -> np.ndarray:
+    """Each period's kind; a stockout is marked as such even outside the fitted periods."""
     kinds = np.full(history.n_periods, "regular", dtype=object)
     promo = history.covariates.get(PROMO_COVARIATE)
     if promo is not None:
@@ -72,26 +74,28 @@ def _week_kinds(history: History, fit: DemandFit | None) -> np.ndarray:
 
 
 _GROUP_LABELS = {
-    "regular": "regular week",
-    "promotion": "promotion week",
+    "regular": "regular {period}",
+    "promotion": "promotion {period}",
     "stockout": "out of stock (sales understate demand)",
-    "outside": "outside the fitted weeks",
+    "outside": "outside the fitted {period}s",
 }
 
 
 def _point_groups(history: History, fit: DemandFit | None) -> tuple[PointGroup, ...]:
-    kinds = _week_kinds(history, fit)
+    kinds = _period_kinds(history, fit)
+    period = period_of(history)
     finite = np.isfinite(history.price) & np.isfinite(history.units)
     groups = []
     for kind, label in _GROUP_LABELS.items():
         mask = (kinds == kind) & finite
         if mask.any():
-            groups.append(PointGroup(kind, label, history.price[mask], history.units[mask]))
+            shown = label.format(period=period)
+            groups.append(PointGroup(kind, shown, history.price[mask], history.units[mask]))
     return tuple(groups)
 
 
 def _scenario(
-    fit: DemandFit, recommendation: Recommendation | None
+    fit: DemandFit, recommendation: Recommendation | None, period: str
 ) -> tuple[dict[str, float], str]:
     """Values of the other drivers: the recommendation's if it used this fit, else the latest."""
     latest = {k: v for k, v in fit.variable_latest.items() if k != "price" and math.isfinite(v)}
@@ -104,7 +108,7 @@ def _scenario(
         }
         if given:
             return {**latest, **given}, "the latest recommendation's scenario"
-    return latest, "the latest fitted week"
+    return latest, f"the latest fitted {period}"
 
 
 def _grid(fit: DemandFit, *prices: float | None) -> np.ndarray:
@@ -188,8 +192,11 @@ def demand_inputs(subject: Subject) -> DemandInputs:
             scenario={},
             scenario_source="",
             note=missing,
+            period=period_of(history),
         )
-    scenario, source = _scenario(fit, subject.recommendation if shown.active else None)
+    scenario, source = _scenario(
+        fit, subject.recommendation if shown.active else None, period_of(history)
+    )
     off_chart = _off_chart_note(fit, current=current, recommended=recommended)
     current = current if near_seen_prices(fit, current) else None
     recommended = recommended if near_seen_prices(fit, recommended) else None
@@ -218,4 +225,5 @@ def demand_inputs(subject: Subject) -> DemandInputs:
         },
         scenario_source=source,
         note=note,
+        period=period_of(history),
     )

@@ -1,4 +1,4 @@
-"""The numbers of the fit-over-time chart: actual and fitted units week by week."""
+"""The numbers of the fit-over-time chart: actual and fitted units period by period."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from typing import Any
 import numpy as np
 
 from models import UnusableDataError, fitted_periods, fitted_units, holdout_units
-from service.ui.chartdata import PROMO_COVARIATE, Subject, fit_label
+from service.ui.chartdata import PROMO_COVARIATE, Subject, fit_label, period_of
 from service.ui.records import ProductInfo
 
 
@@ -24,12 +24,13 @@ class FitTimeInputs:
     # The hold-out's expected units from the fit made without them (nan elsewhere): the
     # forecasts the hold-out WAPE scored.
     holdout_fitted: np.ndarray | None
-    in_fit: np.ndarray  # bool: the week entered the estimation
+    in_fit: np.ndarray  # bool: the period entered the estimation
     holdout_start: np.datetime64 | None
-    holdout_weeks: int
+    holdout_periods: int
     r_squared: float | None
     holdout_wape: float | None
     note: str | None
+    period: str  # the word for one period of the history: day, week, month...
 
 
 def fit_time_inputs(subject: Subject) -> FitTimeInputs:
@@ -39,7 +40,7 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
         "fitted": None,
         "holdout_fitted": None,
         "holdout_start": None,
-        "holdout_weeks": 0,
+        "holdout_periods": 0,
         "r_squared": None,
         "holdout_wape": None,
     }
@@ -53,6 +54,7 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
             promotion=none,
             in_fit=none,
             note="This product has no sales history yet.",
+            period="period",
             **unfitted,
         )
     promo = history.covariates.get(PROMO_COVARIATE)
@@ -63,26 +65,27 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
         "actual": history.units,
         "stockout": ~history.in_stock,
         "promotion": promotion,
+        "period": period_of(history),
     }
-    no_weeks = np.zeros(history.n_periods, dtype=bool)
+    none_in_fit = np.zeros(history.n_periods, dtype=bool)
     if shown is None:
         return FitTimeInputs(
             **base,
-            in_fit=no_weeks,
+            in_fit=none_in_fit,
             note="No demand model has been fitted for this product yet.",
             **unfitted,
         )
     fit = shown.fit
     note = None if shown.active else "Rejected fit, shown for diagnosis only."
     try:
-        # Weeks whose fitted units pass the largest double are left out of the line
+        # Periods whose fitted units pass the largest double are left out of the line
         # (the chart draws finite values only), not errors.
         with np.errstate(over="ignore", under="ignore", invalid="ignore", divide="ignore"):
             fitted = fitted_units(fit, history)
             held = holdout_units(fit, history)
         in_fit, start = fitted_periods(fit, history)
     except (UnusableDataError, ValueError, ArithmeticError):
-        fitted, held, in_fit, start = None, None, no_weeks, None
+        fitted, held, in_fit, start = None, None, none_in_fit, None
         note = (note + " " if note else "") + "The fit cannot be evaluated on the stored history."
     return FitTimeInputs(
         **base,
@@ -91,7 +94,7 @@ def fit_time_inputs(subject: Subject) -> FitTimeInputs:
         holdout_fitted=held if held is not None and np.isfinite(held).any() else None,
         in_fit=in_fit,
         holdout_start=start,
-        holdout_weeks=fit.window.holdout_periods if start is not None else 0,
+        holdout_periods=fit.window.holdout_periods if start is not None else 0,
         r_squared=fit.quality.r_squared,
         holdout_wape=fit.quality.holdout_wape,
         note=note,

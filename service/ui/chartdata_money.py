@@ -12,7 +12,13 @@ from models import DemandFit
 from service.core.errors import InvalidInput, WrongSign
 from service.pricing.recommendations import price_product
 from service.pricing.schemas import ConstraintsIn, OptimalPriceRequest
-from service.ui.chartdata import Subject, fit_label, near_seen_prices, recommended_price
+from service.ui.chartdata import (
+    Subject,
+    fit_label,
+    near_seen_prices,
+    period_of,
+    recommended_price,
+)
 from service.ui.records import ProductInfo, Recommendation
 
 CURVE_POINTS = 121
@@ -40,6 +46,7 @@ class MoneyInputs:
     rules_source: str
     warnings: tuple[str, ...]
     note: str | None
+    period: str = "period"  # the word for one period of the history: day, week, month...
 
     @property
     def drawn(self) -> bool:
@@ -213,4 +220,5 @@ def money_inputs(subject: Subject) -> MoneyInputs:
         rules_source=rules.source,
         warnings=tuple(w.message for w in result.warnings),
         note=note,
+        period=period_of(subject.history),
     )

@@ -1,4 +1,4 @@
-"""The demand chart: past weeks as points against price, the fitted curve and its band."""
+"""The demand chart: past periods as points against price, the fitted curve and its band."""
 
 from __future__ import annotations
 
@@ -138,7 +138,7 @@ def demand_figure(data: DemandInputs, title: str) -> Figure:
             linewidth=0,
             zorder=1,
             gid="demand-band",
-            label=f"{band.level:.0%} range for one week's units",
+            label=f"{band.level:.0%} range for one {data.period}'s units",
         )
         drawn.append(band.high)
         beyond_label = "expected units beyond the prices seen"
@@ -159,7 +159,7 @@ def demand_figure(data: DemandInputs, title: str) -> Figure:
             drawn.append(band.expected[mask])
     _price_marks(ax, data.current_price, data.recommended_price)
     ax.set_xlabel(f"price ({p.currency})")
-    ax.set_ylabel("units per week")
+    ax.set_ylabel(f"units per {data.period}")
     ax.set_ylim(bottom=0)
     cover_with_ticks(ax, drawn)
     figure.subplots_adjust(left=0.09, right=0.98, top=plot_top(figure, data.note))
@@ -216,13 +216,13 @@ def _price_marks(ax: Axes, current: float | None, recommended: float | None) -> 
 def _demand_summary(data: DemandInputs) -> tuple[str, ...]:
     p = data.product
     lines = [f"{p.sku}, {p.name}" + (f"; {data.fit_label}." if data.fit_label else ".")]
-    weeks = sum(g.price.size for g in data.groups)
-    if weeks:
+    seen = sum(g.price.size for g in data.groups)
+    if seen:
         prices = np.concatenate([g.price for g in data.groups])
         units = np.concatenate([g.units for g in data.groups])
         kinds = ", ".join(f"{g.price.size} {g.label}" for g in data.groups)
         lines.append(
-            f"{plural(weeks, 'past week')} ({kinds}); prices {money(prices.min())} to "
+            f"{plural(seen, 'past ' + data.period)} ({kinds}); prices {money(prices.min())} to "
             f"{money(prices.max(), p.currency)}, "
             f"units {count(units.min())} to {count(units.max())}."
         )
@@ -244,7 +244,7 @@ def _demand_summary(data: DemandInputs) -> tuple[str, ...]:
                 lines.append(
                     f"At the {name} price {money(price, p.currency)}: about "
                     f"{count(float(np.interp(price, band.price, band.expected)))} units "
-                    f"({band.level:.0%} range for one week {count(band.low[i])} to "
+                    f"({band.level:.0%} range for one {data.period} {count(band.low[i])} to "
                     f"{count(band.high[i])})."
                 )
         if data.scenario:

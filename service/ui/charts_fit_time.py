@@ -1,4 +1,4 @@
-"""The fit-over-time chart: actual and fitted units by week, and the residuals beneath."""
+"""The fit-over-time chart: actual and fitted units by period, and the residuals beneath."""
 
 from __future__ import annotations
 
@@ -39,7 +39,8 @@ def _days(periods: np.ndarray) -> np.ndarray:
 
 def fit_time_text(data: FitTimeInputs) -> tuple[str, tuple[str, ...]]:
     p = data.product
-    return f"Actual and fitted units of {p.sku} ({p.name}) by week", _fit_time_summary(data)
+    title = f"Actual and fitted units of {p.sku} ({p.name}) by {data.period}"
+    return title, _fit_time_summary(data)
 
 
 @one_at_a_time("fit-over-time", fit_time_text)
@@ -52,7 +53,7 @@ def fit_time_chart(data: FitTimeInputs) -> Chart:
 
 
 def _residuals(data: FitTimeInputs) -> np.ndarray:
-    """Which weeks get a residual bar: fitted, in the fit and sold."""
+    """Which periods get a residual bar: fitted, in the fit and sold."""
     if data.fitted is None:
         return np.zeros(data.periods.size, dtype=bool)
     used: np.ndarray = np.isfinite(data.fitted) & data.in_fit & np.isfinite(data.actual)
@@ -120,7 +121,7 @@ def fit_time_figure(data: FitTimeInputs, title: str) -> Figure:
             linewidth=0,
             zorder=0,
             gid="holdout-window",
-            label=f"hold-out weeks ({data.holdout_weeks})",
+            label=f"hold-out {data.period}s ({data.holdout_periods})",
         )
         top.text(
             start,
@@ -155,7 +156,7 @@ def fit_time_figure(data: FitTimeInputs, title: str) -> Figure:
         label="actual units",
     )
     for mask, marker, color, gid, label in (
-        (data.promotion, "^", AMBER, "promotion-weeks", "promotion week"),
+        (data.promotion, "^", AMBER, "promotion-weeks", f"promotion {data.period}"),
         (data.stockout, "x", BRICK, "stockout-weeks", "out of stock"),
     ):
         chosen = mask & seen
@@ -198,13 +199,13 @@ def fit_time_figure(data: FitTimeInputs, title: str) -> Figure:
             markersize=3,
             zorder=3,
             gid="holdout-forecast",
-            label="hold-out forecast, by a fit made without those weeks",
+            label=f"hold-out forecast, by a fit made without those {data.period}s",
         )
         drawn.append(data.holdout_fitted[held])
     if bottom is not None:
         assert data.fitted is not None
         used = _residuals(data)
-        # One line collection rather than a bar per week: far cheaper to draw.
+        # One line collection rather than a bar per period: far cheaper to draw.
         bottom.vlines(
             days[used],
             0.0,
@@ -212,18 +213,18 @@ def fit_time_figure(data: FitTimeInputs, title: str) -> Figure:
             color=SLATE,
             linewidth=2.4,
             gid="residuals",
-            label="residual (actual - fitted), weeks in the fit",
+            label=f"residual (actual - fitted), {data.period}s in the fit",
         )
         bottom.axhline(0.0, color=INK, linewidth=0.8)
         bottom.xaxis_date()
         bottom.set_ylabel("residual")
-        bottom.set_xlabel("week starting")
+        bottom.set_xlabel(f"{data.period} starting")
         top.tick_params(labelbottom=False)
         cover_with_ticks(bottom, [data.actual[used] - data.fitted[used], [0.0]])
     else:
         top.xaxis_date()
-        top.set_xlabel("week starting")
-    top.set_ylabel("units per week")
+        top.set_xlabel(f"{data.period} starting")
+    top.set_ylabel(f"units per {data.period}")
     top.set_ylim(bottom=0)
     cover_with_ticks(top, [*drawn, [0.0]])
     figure.subplots_adjust(left=0.09, right=0.98, top=plot_top(figure, data.note))
@@ -238,10 +239,10 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
         return tuple(lines)
     ok = np.isfinite(data.actual)
     lines.append(
-        f"{plural(data.periods.size, 'week')} from {data.periods[0]} to {data.periods[-1]}; "
+        f"{plural(data.periods.size, data.period)} from {data.periods[0]} to {data.periods[-1]}; "
         "actual units "
         f"{count(float(data.actual[ok].min()))} to {count(float(data.actual[ok].max()))}, "
-        f"{plural(int(data.promotion.sum()), 'promotion week')}, "
+        f"{plural(int(data.promotion.sum()), 'promotion ' + data.period)}, "
         f"{int(data.stockout.sum())} out of stock."
     )
     if data.fitted is not None:
@@ -249,18 +250,19 @@ def _fit_time_summary(data: FitTimeInputs) -> tuple[str, ...]:
         if used.any():
             residual = data.actual[used] - data.fitted[used]
             worst = int(np.argmax(np.abs(residual)))
-            worst_week = data.periods[used][worst]
+            worst_period = data.periods[used][worst]
             lines.append(
-                f"{plural(int(used.sum()), 'week')} entered the fit; residuals range from "
+                f"{plural(int(used.sum()), data.period)} entered the fit; residuals range from "
                 f"{count(float(residual.min()))} to {count(float(residual.max()))} units "
-                f"(largest miss {count(float(residual[worst]))} in the week of {worst_week})."
+                f"(largest miss {count(float(residual[worst]))} "
+                f"in the {data.period} of {worst_period})."
             )
     if data.r_squared is not None:
         lines.append(f"R² {data.r_squared:.3f}.")
     if data.holdout_start is not None:
         wape = f"{data.holdout_wape:.1%}" if data.holdout_wape is not None else "not scored"
         lines.append(
-            f"Hold-out: the last {plural(data.holdout_weeks, 'fitted week')} from "
+            f"Hold-out: the last {plural(data.holdout_periods, 'fitted ' + data.period)} from "
             f"{data.holdout_start}; "
             f"weighted absolute percentage error (WAPE) {wape}."
         )

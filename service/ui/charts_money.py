@@ -189,7 +189,7 @@ def money_figure(data: MoneyInputs, title: str) -> Figure:
             label=f"90% range of the best price ({data.draws} draws): {low:.2f} to {high:.2f}",
         )
     ax.set_xlabel(f"price ({p.currency})")
-    ax.set_ylabel(f"per week ({p.currency})")
+    ax.set_ylabel(f"per {data.period} ({p.currency})")
     figure.subplots_adjust(left=0.1, right=0.98, top=plot_top(figure, data.note))
     legend_below(figure, [ax], columns=2, height=DEMAND_HEIGHT)
     return figure

@@ -8,6 +8,7 @@ fits made here, without a database: what is checked is the drawing.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import math
 from collections.abc import Iterator
@@ -252,3 +253,31 @@ def test_cover_with_ticks_moves_the_top_tick_past_the_data() -> None:
     charts.cover_with_ticks(ax, [np.array([0.0, 1040.0])])
     ticks = _visible_ticks(ax)
     assert ticks[-1] >= 1040.0 and math.isclose(ax.get_ylim()[1], ticks[-1])
+
+
+def test_charts_of_monthly_data_say_month_not_week() -> None:
+    # The same sales re-dated a month apart: every chart's words follow the history's
+    # detected period (#15: monthly or daily data must not be labelled "week").
+    weekly = _subject("TEA-004")
+    assert weekly.history is not None
+    n = weekly.history.n_periods
+    months = np.array(
+        [np.datetime64(f"{2015 + i // 12}-{i % 12 + 1:02d}-01", "D") for i in range(n)]
+    )
+    monthly = Subject(
+        product=weekly.product,
+        fit=weekly.fit,
+        recommendation=None,
+        history=dataclasses.replace(weekly.history, periods=months),
+    )
+    over_time = chartdata_fit_time.fit_time_inputs(monthly)
+    demand = chartdata_demand.demand_inputs(monthly)
+    assert over_time.period == demand.period == "month"
+    figure = charts_fit_time.fit_time_figure(over_time, "fit over time")
+    assert figure.axes[0].get_ylabel() == "units per month"
+    assert charts_demand.demand_figure(demand, "demand").axes[0].get_ylabel() == "units per month"
+    money = chartdata_money.money_inputs(monthly)
+    assert charts_money.money_figure(money, "money").axes[0].get_ylabel() == "per month (EUR)"
+    texts = (charts_fit_time.fit_time_text(over_time), charts_demand.demand_text(demand))
+    words = " ".join(title + " " + " ".join(lines) for title, lines in texts)
+    assert "week" not in words and "month" in words
