@@ -40,7 +40,7 @@ import numpy as np
 from scipy import optimize, special, stats
 
 from models._typing import FloatArray
-from models.errors import PricingInputError
+from models.errors import PricingInputError, UnboundedObjectiveError
 from models.pricing import notes
 from models.pricing.constraints import Interval
 from models.pricing.curve import DemandCurve, design_row, log_offset, own_index
@@ -56,6 +56,8 @@ GAIN_CHANCE: Final = 0.80
 NO_HARM_CHECK: Final = "no_harm_check"
 """The name the check takes among binding constraints when it keeps the current price."""
 QUADRATURE_NODES: Final = 24
+NEGLIGIBLE_WEIGHT: Final = 1e-12
+"""Quadrature nodes lighter than this (far in the tails) are left out of money figures."""
 DECISION_GRID: Final = 241
 
 
@@ -214,27 +216,41 @@ def decision_figures(
     chosen: float,
     current_price: float | None,
 ) -> PriceDecision:
-    """The value of knowing and the comparison with the current price at ``chosen``."""
+    """The value of knowing and the comparison with the current price at ``chosen``.
+
+    The value of knowing is None when, with a side of the allowed prices open, outcomes of
+    non-negligible weight have no finite best price (their objective grows without limit).
+    """
     curve, weights = _node_curve(law, sku, form)
-    at_chosen = curve.objective(chosen, cost)[:, 0]
-    if allowed is not None:
-        best = curve.objective(allowed[None, :], cost).max(axis=1)
-    else:
-        low, high = _search_limits(iv, reference)
-        n = weights.size
-        prices = maximise_batch(curve, cost, np.full(n, low), np.full(n, high))
-        best = curve.objective(prices[:, None], cost)[:, 0]
-    loss = np.maximum(best - at_chosen, 0.0)
+    with np.errstate(over="ignore", invalid="ignore"):
+        at_chosen = curve.objective(chosen, cost)[:, 0]
+        unbounded = np.zeros(weights.size, dtype=bool)
+        if allowed is not None:
+            best = curve.objective(allowed[None, :], cost).max(axis=1)
+        else:
+            low, high = _search_limits(iv, reference)
+            n = weights.size
+            prices = maximise_batch(curve, cost, np.full(n, low), np.full(n, high))
+            best = curve.objective(prices[:, None], cost)[:, 0]
+            unbounded = (math.isinf(iv.high) & (prices >= high * (1.0 - 1e-9))) | (
+                (not iv.low > 0.0) & (prices <= low * (1.0 + 1e-9))
+            )
+        loss = np.maximum(best - at_chosen, 0.0)
+    weighty = weights > NEGLIGIBLE_WEIGHT
+    value = None
+    if not np.any(unbounded & weighty) and np.all(np.isfinite(loss[weighty])):
+        value = float(weights[weighty] @ loss[weighty])
     gain = chance = None
     if current_price is not None:
-        diff = at_chosen - curve.objective(current_price, cost)[:, 0]
-        gain = float(weights @ diff)
+        with np.errstate(over="ignore", invalid="ignore"):
+            diff = at_chosen - curve.objective(current_price, cost)[:, 0]
+        gain = float(weights[weighty] @ diff[weighty])
         chance = float(weights @ (diff > 0.0))
     return PriceDecision(
         decide_by=decide_by,
         cautious_level=CAUTIOUS_LEVEL if decide_by == "cautious" else None,
         expected_objective=float(law.expected(np.array(chosen), cost)),
-        value_of_knowing=float(weights @ loss),
+        value_of_knowing=value,
         expected_gain=gain,
         chance_of_gain=chance,
         held_current=False,
@@ -257,6 +273,29 @@ def no_harm(figures: PriceDecision) -> bool:
     if figures.expected_gain is None or figures.chance_of_gain is None:
         return True
     return figures.expected_gain > 0.0 and figures.chance_of_gain >= GAIN_CHANCE
+
+
+def _check_open(sku: str, law: PredictorLaw, cost: float, iv: Interval) -> None:
+    """Raise when ``expected`` has no finite optimum: with any spread in the own-price
+    coefficient, the mean of ``units`` grows faster than any power of the price far from
+    the data (``exp(v / 2)`` with ``v`` quadratic in ``g(p)``; a normal floored at zero
+    grows linearly), so the mean objective is unbounded above without an upper price
+    limit, and, for revenue on the log-price forms, without a lower one."""
+    if not law.cov[1, 1] > 0.0:
+        return
+    above = math.isinf(iv.high)
+    below = not iv.low > 0.0 and cost == 0.0 and law.log_price
+    if above or below:
+        direction, fix = ("above", "max_price") if above else ("below", "min_price")
+        raise UnboundedObjectiveError(
+            sku,
+            direction,
+            f"{sku}: choosing by expected, the average over the estimate's distribution "
+            f"grows without limit as the price moves {direction} the prices seen (the "
+            f"estimate's spread grows there) and no constraint stops it: set {fix} or "
+            "max_change_pct, keep the observed-range guard (allow_extrapolation=false), "
+            "or choose by point or cautious",
+        )
 
 
 def check_decision(decide_by: str) -> None:
@@ -291,6 +330,8 @@ def choose(
         )
         return point_price, None, [notes.uncertainty_unavailable(reason)]
     price = point_price
+    if decide_by == "expected" and allowed is None:
+        _check_open(fit.sku, law, cost, iv)
     if decide_by != "point":
         price = best_price(
             law, decide_by, cost, iv, reference=reference, allowed=allowed, hint=point_price

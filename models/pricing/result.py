@@ -79,10 +79,12 @@ class PriceDecision:
         outcomes); None for the other rules.
     expected_objective : float
         Mean profit (or revenue) at the recommended price over the distribution.
-    value_of_knowing : float
+    value_of_knowing : float or None
         Expected profit (or revenue) per period lost because the coefficients are not
         known exactly: the mean of the best attainable figure minus the figure at the
-        recommended price, over the distribution, within the same allowed prices.
+        recommended price, over the distribution, within the same allowed prices. None
+        when, with no upper (or lower) price limit, the best price of some outcomes is
+        unbounded.
     expected_gain : float or None
         Mean gain of the recommended price over the current one (None without a current
         price); 0 when the current price is kept.
@@ -95,7 +97,7 @@ class PriceDecision:
     decide_by: str
     cautious_level: float | None
     expected_objective: float
-    value_of_knowing: float
+    value_of_knowing: float | None
     expected_gain: float | None
     chance_of_gain: float | None
     held_current: bool

@@ -19,7 +19,15 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from models import DemandCurve, DemandFit, ModelSpec, PriceConstraints, fit_demand, optimal_price
+from models import (
+    DemandCurve,
+    DemandFit,
+    ModelSpec,
+    PriceConstraints,
+    UnboundedObjectiveError,
+    fit_demand,
+    optimal_price,
+)
 from models.scenario import simulate_product
 
 BRUTE_DRAWS = 200_000
@@ -216,3 +224,21 @@ def test_cautious_price_moves_toward_the_current_price_as_uncertainty_grows(
     assert abs(np.log(far / current)) <= abs(np.log(near / current)) + 1e-7
     if abs(np.log(near / current)) > 0.05:  # away from the current price it really moves
         assert abs(np.log(far / current)) < abs(np.log(near / current)) - 1e-6
+
+
+@pytest.mark.parametrize("form", ["linear", "log-log", "semi-log"])
+def test_expected_without_an_upper_price_limit_has_no_finite_optimum(form: str) -> None:
+    fit, cost = noisy_fit(form)
+    free = PriceConstraints(allow_extrapolation=True)
+    # With any spread in the own-price coefficient the mean of exp(eta) grows like
+    # exp(Var(b) g(p)**2 / 2) (lognormal mean, Aitchison and Brown 1957), and a floored
+    # normal linearly: the mean profit is unbounded above, so the library says so.
+    with pytest.raises(UnboundedObjectiveError) as raised:
+        optimal_price(fit, unit_cost=cost, constraints=free, decide_by="expected")
+    assert raised.value.direction == "above"
+    # The cautious criterion stays bounded; outcomes whose own best price is unbounded
+    # (log-log draws with b > -1 carry weight here) leave the value of knowing undefined.
+    cautious = optimal_price(fit, unit_cost=cost, constraints=free, decide_by="cautious")
+    assert cautious.decision_figures is not None
+    if form == "log-log":
+        assert cautious.decision_figures.value_of_knowing is None

@@ -112,3 +112,25 @@ def test_unknown_choice_and_non_boolean_check_are_refused(
         answer = client.post("/v1/products/DECIDE-BAD/optimal-price", json=body, headers=headers)
         assert answer.status_code == 422, answer.text
         assert answer.headers["content-type"].startswith("application/problem+json")
+
+
+def test_expected_without_a_price_limit_is_refused_with_the_reason(
+    client: TestClient, headers: dict[str, str]
+) -> None:
+    rng = np.random.default_rng(5)
+    units = [float(2000.0 - 100.0 * p + rng.normal(0.0, 150.0)) for p in PRICES]
+    _product(client, headers, "DECIDE-OPEN", units)
+    body = {"decide_by": "expected", "constraints": {"allow_extrapolation": True}}
+    answer = client.post("/v1/products/DECIDE-OPEN/optimal-price", json=body, headers=headers)
+    # The mean of a normal floored at zero grows linearly in the price when the slope
+    # may be positive: no finite optimum without an upper limit (see the library test).
+    assert answer.status_code == 422, answer.text
+    assert "max_price" in answer.text
+    cautious = _price(
+        client,
+        headers,
+        "DECIDE-OPEN",
+        decide_by="cautious",
+        **{"constraints": {"allow_extrapolation": True}},
+    )
+    assert cautious["decision_figures"]["decide_by"] == "cautious"
