@@ -74,11 +74,22 @@ class FamilyProductOutcomeOut(BaseModel):
     reason: str | None = Field(description="Why the product is not watched, when it is not")
 
 
+class FamilyPeriodOut(BaseModel):
+    period: str
+    realised: float = Field(description="Units sold, summed over the products counted")
+    expected: float = Field(description="Units the active fits expected, summed likewise")
+    error: float = Field(description="realised - expected")
+    products: int = Field(description="How many products the period counts")
+
+
 class FamilyOutcomesOut(BaseModel):
     family: str
     wape: float | None = Field(description="Over every watched period of the family's products")
     products_flagged: int
     products: list[FamilyProductOutcomeOut]
+    periods: list[FamilyPeriodOut] = Field(
+        description="The family's forecast error over time: counted periods summed by period"
+    )
 
 
 def _num(value: float) -> float | None:
@@ -166,10 +177,30 @@ def family_outcomes_out(
         )
         for sku, why in skipped
     ]
+    by_period: dict[str, list[float]] = {}
+    for w in watched:
+        if w.outcomes is None:
+            continue
+        for period, use, real, exp in zip(
+            w.outcomes.periods,
+            w.counted(),
+            w.outcomes.realised,
+            w.outcomes.expected,
+            strict=True,
+        ):
+            if use:
+                sums = by_period.setdefault(period, [0.0, 0.0, 0.0])
+                sums[0] += float(real)
+                sums[1] += float(exp)
+                sums[2] += 1
     total = sum(w.realised_total() for w in watched)
     return FamilyOutcomesOut(
         family=family,
         wape=sum(w.absolute_error() for w in watched) / total if total > 0 else None,
         products_flagged=sum(1 for w in watched if w.drift is not None and w.drift.flagged),
         products=sorted(rows, key=lambda r: r.sku),
+        periods=[
+            FamilyPeriodOut(period=p, realised=r, expected=e, error=r - e, products=int(n))
+            for p, (r, e, n) in sorted(by_period.items())
+        ],
     )

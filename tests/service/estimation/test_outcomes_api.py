@@ -73,6 +73,10 @@ def test_a_fall_in_demand_raises_the_flag_and_shows_in_metrics(
     family = shop.get(f"/v1/families/{body['family']}/outcomes", headers=headers).json()
     row = next(p for p in family["products"] if p["sku"] == SKU)
     assert row["drift_flagged"] is True and family["products_flagged"] >= 1
+    # Over time: the family's periods sum its counted products (here TEA-021 alone).
+    assert [p["period"] for p in family["periods"]] == periods
+    assert [p["realised"] for p in family["periods"]] == [p["realised"] for p in body["periods"]]
+    assert all(p["products"] == 1 for p in family["periods"])
     others = [p for p in family["products"] if p["sku"] != SKU]
     assert all(p["reason"] for p in others)  # no fit, or nothing to watch: said, not failed
     exposition = shop.get("/metrics", headers=headers).text
