@@ -19,9 +19,10 @@ from service.access import routes as keys
 from service.catalogue import import_routes as imports
 from service.catalogue import observation_routes as observations
 from service.catalogue import product_routes as products
-from service.core import docs_pages, logs, metrics, problems
+from service.core import audit_routes, docs_pages, logs, metrics, problems
 from service.core import health_routes as health
 from service.core import metrics_routes as metrics_route
+from service.core.audit_trail import AuditTrail
 from service.core.db import make_engine, make_no_wait_factory, make_session_factory
 from service.core.group_commit import GroupWriter
 from service.core.limits import BodySizeLimit
@@ -33,6 +34,7 @@ from service.jobs import routes as jobs
 from service.jobs import schedules
 from service.jobs.worker import JobRunner, Worker
 from service.pricing import recommendations as pricing_service
+from service.pricing import review_routes as review
 from service.pricing import routes as pricing
 from service.pricing import rule_routes
 from service.ui import routes as ui
@@ -101,6 +103,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             allow_headers=["Authorization", "Content-Type", "X-Request-ID"],
             expose_headers=["X-Request-ID", "Retry-After", "ETag"],
         )
+    # Inside the observer, so that an audit entry carries the request's id.
+    app.add_middleware(AuditTrail)
     app.add_middleware(RequestObserver)
     for router in (
         health.router,
@@ -112,7 +116,9 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         price_tests.router,
         outcomes.router,
         pricing.router,
+        review.router,
         rule_routes.router,
+        audit_routes.router,
         jobs.router,
         keys.router,
         ui.router,

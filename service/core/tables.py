@@ -48,6 +48,12 @@ def as_utc_or_none(value: dt.datetime | None) -> dt.datetime | None:
     return None if value is None else as_utc(value)
 
 
+def to_utc(value: dt.datetime) -> dt.datetime:
+    """The same moment in UTC, for comparing with stored times (SQLite compares the text
+    and would misread another zone); a naive time is taken as UTC."""
+    return value.astimezone(dt.UTC) if value.tzinfo else value.replace(tzinfo=dt.UTC)
+
+
 class Base(DeclarativeBase):
     metadata = MetaData(naming_convention=NAMING_CONVENTION)
 

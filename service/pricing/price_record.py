@@ -25,14 +25,9 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.core.errors import Conflict, ErrorItem, NotFound
-from service.core.tables import PriceEntryRow, ProductRow, as_utc, utcnow
+from service.core.tables import PriceEntryRow, ProductRow, as_utc, to_utc, utcnow
 
 PRIOR_PRICE_DAYS = 30
-
-
-def utc(moment: dt.datetime) -> dt.datetime:
-    """The same moment in UTC (a naive time is taken as UTC)."""
-    return moment.astimezone(dt.UTC) if moment.tzinfo else moment.replace(tzinfo=dt.UTC)
 
 
 @dataclass(frozen=True)
@@ -83,7 +78,7 @@ def entries(session: Session, product_id: int) -> list[PriceEntry]:
 
 def live_price(session: Session, product_id: int, at: dt.datetime) -> PriceEntry | None:
     """The entry live at ``at``: the latest that started at or before it."""
-    moment = utc(at)
+    moment = to_utc(at)
     row = session.scalar(
         select(PriceEntryRow)
         .where(PriceEntryRow.product_id == product_id, PriceEntryRow.effective_from <= moment)
@@ -104,7 +99,7 @@ def last_change(session: Session, product_id: int, at: dt.datetime) -> dt.dateti
     """When the live price last changed at or before ``at`` (None: no price yet)."""
     found = session.scalar(
         select(func.max(PriceEntryRow.effective_from)).where(
-            PriceEntryRow.product_id == product_id, PriceEntryRow.effective_from <= utc(at)
+            PriceEntryRow.product_id == product_id, PriceEntryRow.effective_from <= to_utc(at)
         )
     )
     return None if found is None else as_utc(found)
@@ -114,7 +109,7 @@ def prior_lowest_price(
     session: Session, product_id: int, at: dt.datetime, days: int = PRIOR_PRICE_DAYS
 ) -> float | None:
     """The lowest price live at any moment of ``[at - days, at)``; None if no entry was."""
-    end = utc(at)
+    end = to_utc(at)
     start = end - dt.timedelta(days=days)
     live_at_start = live_price(session, product_id, start)
     started_within = session.scalar(
@@ -145,7 +140,7 @@ def add_entry(
     """Add a live price from ``effective_from``. The product's row is locked first (on
     PostgreSQL), so entries for one product are added one at a time; a start earlier than
     the newest entry's, or equal to it, is refused: the record is only ever extended."""
-    start = utc(effective_from)
+    start = to_utc(effective_from)
     locked = session.execute(
         select(ProductRow.id).where(ProductRow.id == product_id).with_for_update()
     ).first()

@@ -13,7 +13,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Protocol, cast
 
-from sqlalchemy import Table, func, insert, select
+from sqlalchemy import Table, and_, func, insert, select
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
@@ -31,9 +31,9 @@ from service.core.errors import (
     NotFound,
     library_errors,
 )
-from service.core.tables import ProductRow, RecommendationRow, utcnow
+from service.core.tables import PriceEntryRow, ProductRow, RecommendationRow, as_utc, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
-from service.pricing import rule_limits
+from service.pricing import price_record, review, rule_limits
 from service.pricing.money import money_text, round_recommendation
 from service.pricing.rule_limits import RuleLimits
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
@@ -168,9 +168,22 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
         sku=product.sku,
         fit_id=fit_id,
         objective=body.objective,
-        request=body.model_dump(),
-        result=rule_limits.split_binding(result.to_dict(), rules),
+        request=body.model_dump(exclude={"store"}),
+        result=with_prior_price(
+            session, product.id, rule_limits.split_binding(result.to_dict(), rules)
+        ),
     )
+
+
+def with_prior_price(session: Session, product_id: int, result: dict[str, Any]) -> dict[str, Any]:
+    """A result that lowers the price carries the prior price: the lowest price live in
+    the 30 days before now in the product's price record (see
+    :func:`~service.pricing.price_record.prior_lowest_price`)."""
+    current = (result.get("current") or {}).get("price")
+    recommended = (result.get("recommended") or {}).get("price")
+    lowers = current is not None and recommended is not None and recommended < current
+    prior = price_record.prior_lowest_price(session, product_id, utcnow()) if lowers else None
+    return {**result, "prior_price": prior}
 
 
 _RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
@@ -211,10 +224,28 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
         raise NotFound(
             "the product or its fit was deleted while the price was worked out"
         ) from None
-    return [
-        answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now)
-        for row_id, p in zip(ids, priced, strict=True)
-    ]
+    approved = review.after_store(
+        session,
+        [(row_id, p.product_id, p.sku, p.result) for row_id, p in zip(ids, priced, strict=True)],
+    )
+    newest = {p.product_id: row_id for row_id, p in zip(ids, priced, strict=True)}
+    answers = []
+    for row_id, p in zip(ids, priced, strict=True):
+        decided = approved.get(row_id)
+        state = "proposed" if newest[p.product_id] == row_id else "superseded"
+        fields: dict[str, Any] = {"state": state}
+        if decided is not None:
+            fields = {
+                "state": decided.state,
+                "decided_at": now if decided.entry is None else decided.entry.created_at,
+                "policy_id": None if decided.entry is None else decided.entry.policy_id,
+                "approved_price": decided.price,
+                "effective_from": None if decided.entry is None else decided.entry.effective_from,
+            }
+        answers.append(
+            answer(p.result, row_id=row_id, sku=p.sku, fit_id=p.fit_id, created_at=now) | fields
+        )
+    return answers
 
 
 def _check_one_currency(family: str, currencies: dict[str, str]) -> None:
@@ -310,7 +341,7 @@ def recommend_family(
         )
     rounded = tuple(round_recommendation(r, by_sku[r.sku].currency) for r in result.products)
     data = replace(result, products=rounded).to_dict()
-    request = {"family": family, **body.model_dump()}
+    request = {"family": family, **body.model_dump(exclude={"store"})}
     priced = [
         Priced(
             product_id=by_sku[item["sku"]].id,
@@ -318,7 +349,11 @@ def recommend_family(
             fit_id=fit_ids[item["sku"]],
             objective=body.objective,
             request=request,
-            result=rule_limits.split_binding(item, rules[item["sku"]]),
+            result=with_prior_price(
+                session,
+                by_sku[item["sku"]].id,
+                rule_limits.split_binding(item, rules[item["sku"]]),
+            ),
         )
         for item in data["products"]
     ]
@@ -342,18 +377,29 @@ def latest_page(
     since: dt.datetime | None,
     limit: int,
     after_sku: str | None,
-) -> tuple[list[tuple[RecommendationRow, str]], bool]:
-    """The newest recommendation of each product, by sku."""
+    state: str | None = "approved",
+) -> tuple[list[tuple[RecommendationRow, str, dt.datetime | None]], bool]:
+    """The newest recommendation of each product in ``state`` (None: in any state), by
+    sku, with when its price goes live if it was approved."""
     newest = select(func.max(RecommendationRow.id).label("id")).group_by(
         RecommendationRow.product_id
     )
+    if state is not None:
+        newest = newest.where(RecommendationRow.state == state)
     if since is not None:
         newest = newest.where(RecommendationRow.created_at >= since)
     ids = newest.subquery()
     query = (
-        select(RecommendationRow, ProductRow.sku)
+        select(RecommendationRow, ProductRow.sku, PriceEntryRow.effective_from)
         .join(ids, ids.c.id == RecommendationRow.id)
         .join(ProductRow, ProductRow.id == RecommendationRow.product_id)
+        .outerjoin(
+            PriceEntryRow,
+            and_(
+                PriceEntryRow.recommendation_id == RecommendationRow.id,
+                PriceEntryRow.product_id == RecommendationRow.product_id,
+            ),
+        )
         .order_by(ProductRow.sku)
         .limit(limit + 1)
     )
@@ -361,5 +407,7 @@ def latest_page(
         query = query.where(ProductRow.family == family)
     if after_sku is not None:
         query = query.where(ProductRow.sku > after_sku)
-    rows = [(r, s) for r, s in session.execute(query).all()]
+    rows: list[tuple[RecommendationRow, str, dt.datetime | None]] = [
+        (r, s, None if e is None else as_utc(e)) for r, s, e in session.execute(query).all()
+    ]
     return rows[:limit], len(rows) > limit

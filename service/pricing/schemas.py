@@ -16,6 +16,7 @@ from pydantic import (
 from service.core.schemas import NAME_PATTERN, Money, PositiveMoney, Sku, Strict
 from service.estimation.schemas import WarningOut
 from service.pricing.decision_schemas import DecisionAnswer, DecisionFields
+from service.pricing.review_schemas import STATE_HELP, RecommendationState
 from service.pricing.rule_schemas import RuleFields
 
 Objective = Literal["profit", "revenue"]
@@ -91,6 +92,11 @@ class OptimalPriceRequest(DecisionFields, Strict):
     allow_wrong_sign: StrictBool = Field(
         default=False, description="Optimise even when the own-price effect has the wrong sign"
     )
+    store: StrictBool = Field(
+        default=False,
+        description="Store the answer as a proposed recommendation (needs the `write` "
+        "scope); by default nothing is stored: a what-if answer",
+    )
 
     @model_validator(mode="after")
     def _curve_size(self) -> OptimalPriceRequest:
@@ -145,10 +151,36 @@ class RecommendationOut(DecisionAnswer, RuleFields):
     compares the rounded prices.
     """
 
-    id: int
+    id: int | None = Field(
+        default=None, description="The stored recommendation's id; null when not stored"
+    )
     sku: str
     fit_id: int | None
-    created_at: dt.datetime
+    created_at: dt.datetime | None = Field(
+        default=None, description="When it was stored; null when not"
+    )
+    state: RecommendationState | None = Field(default=None, description=STATE_HELP)
+    decided_at: dt.datetime | None = None
+    decided_by_key_id: str | None = Field(
+        default=None, description="The key that approved or declined it"
+    )
+    policy_id: int | None = Field(
+        default=None, description="The approval policy that approved it, if one did"
+    )
+    approved_price: float | None = Field(
+        default=None,
+        description="The price approved: the recommended one unless a person edited it",
+    )
+    effective_from: dt.datetime | None = Field(
+        default=None, description="When the approved price goes live"
+    )
+    note: str | None = None
+    prior_price: float | None = Field(
+        default=None,
+        description="For a recommendation that lowers the price: the lowest price live in "
+        "the 30 days before it was made (the prior price of article 6a of the EU Price "
+        "Indication Directive 98/6/EC), null if the price record has none",
+    )
     form: str
     objective: Objective
     unit_cost: float | None
@@ -198,6 +230,11 @@ class FamilyPriceRequest(Strict):
     seed: Annotated[int, Field(strict=True, ge=0)] = 0
     allow_wrong_sign: StrictBool = Field(
         default=False, description="Optimise even when an own-price effect has the wrong sign"
+    )
+    store: StrictBool = Field(
+        default=False,
+        description="Store each product's answer as a proposed recommendation (needs the "
+        "`write` scope); by default nothing is stored: a what-if answer",
     )
 
 

@@ -92,7 +92,7 @@ def test_answers_carry_prices_in_the_minor_unit_without_float_noise(
     _linear_product(client, headers, sku, currency, current=16.3, unit_cost=unit_cost)
     response = client.post(
         f"/v1/products/{sku}/optimal-price",
-        json={"objective": "profit", "constraints": constraints},
+        json={"objective": "profit", "constraints": constraints, "store": True},
         headers=headers,
     )
     assert response.status_code == 200, response.json()
@@ -105,7 +105,9 @@ def test_answers_carry_prices_in_the_minor_unit_without_float_noise(
     current, best = answer["current"]["price"], answer["recommended"]["price"]
     assert math.isclose(answer["change_pct"], 100 * (best / current - 1), rel_tol=1e-12)
     # The stored recommendation reads back the same.
-    latest = client.get("/v1/recommendations", headers=headers).json()["items"]
+    latest = client.get(
+        "/v1/recommendations", params={"state": "proposed"}, headers=headers
+    ).json()["items"]
     [stored] = [r for r in latest if r["sku"] == sku]
     assert _prices(stored) == _prices(answer)
 

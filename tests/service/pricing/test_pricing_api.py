@@ -287,6 +287,7 @@ def test_family_prices_and_the_nightly_pull(
             "constraints": {"max_change_pct": 15},
             "order": [["TEA-004", "TEA-002"]],
             "max_total_change_pct": 8,
+            "store": True,
         },
         headers=headers,
     )
@@ -302,26 +303,28 @@ def test_family_prices_and_the_nightly_pull(
     )
     assert ladder.status_code == 422
 
-    single = recommend(client, headers, "TEA-005", objective="revenue")
-    latest = client.get("/v1/recommendations", params={"family": "green"}, headers=headers).json()[
-        "items"
-    ]
+    single = recommend(client, headers, "TEA-005", objective="revenue", store=True)
+    latest = client.get(
+        "/v1/recommendations", params={"family": "green", "state": "proposed"}, headers=headers
+    ).json()["items"]
     by_sku = {r["sku"]: r for r in latest}
     assert set(by_sku) == set(prices)
     assert by_sku["TEA-005"]["id"] == single["id"] and by_sku["TEA-005"]["curve"] is None
     page = client.get(
-        "/v1/recommendations", params={"limit": 2, "since": before}, headers=headers
+        "/v1/recommendations",
+        params={"limit": 2, "since": before, "state": "proposed"},
+        headers=headers,
     ).json()
     assert len(page["items"]) == 2 and page["next_cursor"]
     rest = client.get(
         "/v1/recommendations",
-        params={"limit": 2, "since": before, "cursor": page["next_cursor"]},
+        params={"limit": 2, "since": before, "state": "proposed", "cursor": page["next_cursor"]},
         headers=headers,
     ).json()
     assert [r["sku"] for r in page["items"] + rest["items"]] == sorted(prices)
     later = client.get(
         "/v1/recommendations",
-        params={"since": dt.datetime.now(dt.UTC).isoformat()},
+        params={"since": dt.datetime.now(dt.UTC).isoformat(), "state": "any"},
         headers=headers,
     ).json()
     assert later["items"] == []
