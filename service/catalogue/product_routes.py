@@ -13,6 +13,8 @@ from service.core.deps import ADMIN, READ, WRITE, ReadSession, WriteSession
 from service.core.pagination import decode_cursor, encode_cursor
 from service.core.responses import problems
 from service.core.schemas import SKU_PATTERN, Page
+from service.core.tables import utcnow
+from service.pricing import price_record
 
 router = APIRouter(prefix="/v1/products", tags=["products"])
 
@@ -44,8 +46,16 @@ def put_product(
     summary="Read a product",
     responses=problems(404, 422),
 )
-def get_product(product: ReadProduct) -> ProductOut:
-    return product_out(product)
+def get_product(product: ReadProduct, session: ReadSession) -> ProductOut:
+    now = utcnow()
+    live = price_record.live_price(session, product.id, now)
+    return product_out(product).model_copy(
+        update={
+            "live_price": None if live is None else live.price,
+            "prior_price": price_record.prior_lowest_price(session, product.id, now),
+            "price_changed_at": price_record.last_change(session, product.id, now),
+        }
+    )
 
 
 @router.patch(

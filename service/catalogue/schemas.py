@@ -79,6 +79,20 @@ class ProductOut(BaseModel):
     default_spec: dict[str, Any] | None
     created_at: dt.datetime
     updated_at: dt.datetime
+    live_price: float | None = Field(
+        default=None,
+        description="The approved price live now, from the price record (null if none yet, "
+        "and in lists)",
+    )
+    prior_price: float | None = Field(
+        default=None,
+        description="The lowest price live in the 30 days before now, from the price record: "
+        "the prior price to show beside a reduction under article 6a of the EU Price "
+        "Indication Directive 98/6/EC (null if none, and in lists)",
+    )
+    price_changed_at: dt.datetime | None = Field(
+        default=None, description="When the live price last changed (null if never, and in lists)"
+    )
 
 
 class ObservationIn(Strict):

@@ -139,6 +139,9 @@ def test_a_lowered_price_carries_the_prior_price(
     assert raised["prior_price"] is None
     record = client.get("/v1/products/PP-1/prices", headers=headers).json()
     assert record["prior_price"] == 16.0 and record["last_change"] is not None
+    product = client.get("/v1/products/PP-1", headers=headers).json()
+    assert (product["live_price"], product["prior_price"]) == (16.0, 16.0)
+    assert product["price_changed_at"] == record["last_change"]
 
 
 def test_policies_approve_within_their_limits(
