@@ -73,7 +73,9 @@ def entries(session: Session, product_id: int) -> list[PriceEntry]:
         )
     )
     ends: list[dt.datetime | None] = [r.effective_from for r in rows[1:]]
-    return [_entry(row, end) for row, end in zip(rows, [*ends, None], strict=True)]
+    if rows:
+        ends.append(None)
+    return [_entry(row, end) for row, end in zip(rows, ends, strict=True)]
 
 
 def live_price(session: Session, product_id: int, at: dt.datetime) -> PriceEntry | None:

@@ -344,6 +344,7 @@ class ProductPage:
     latest: Recommendation | None
     charts: list[ChartView]
     fit_versions: dict[int, int]  # a fit's id -> its version, as people refer to fits
+    prices: records.PriceRecordView
 
 
 def chart_views(
@@ -406,4 +407,5 @@ def product_page_for(
         latest=latest,
         charts=chart_views(subject, drawn),
         fit_versions={v.id: v.version for v in versions},
+        prices=records.price_record_view(session, product.id, product.sku),
     )

@@ -15,9 +15,11 @@ from sqlalchemy.orm import Session
 
 from models import DemandFit
 from service.catalogue import products
-from service.core.tables import FitRow, ProductRow, RecommendationRow, as_utc
+from service.core.audit import AuditEntry, AuditFilter, audit_page
+from service.core.tables import FitRow, ProductRow, RecommendationRow, as_utc, utcnow
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
+from service.pricing import price_record
 
 
 @dataclass(frozen=True)
@@ -81,6 +83,8 @@ class Recommendation:
     created_at: dt.datetime
     request: dict[str, Any]
     result: dict[str, Any]
+    state: str = "proposed"
+    approved_price: float | None = None
 
     @classmethod
     def of(cls, row: RecommendationRow) -> Recommendation:
@@ -91,6 +95,8 @@ class Recommendation:
             created_at=as_utc(row.created_at),
             request=dict(row.request or {}),
             result=dict(row.result or {}),
+            state=row.state,
+            approved_price=row.approved_price,
         )
 
     @property
@@ -260,3 +266,28 @@ def recommendations(session: Session, product_id: int, limit: int = 20) -> list[
         .limit(limit)
     )
     return [Recommendation.of(row) for row in rows]
+
+
+@dataclass(frozen=True)
+class PriceRecordView:
+    """The product's price record as the product page shows it: newest first."""
+
+    live_price: float | None
+    prior_price: float | None
+    entries: list[price_record.PriceEntry]
+    changes: list[AuditEntry]
+
+
+def price_record_view(session: Session, product_id: int, sku: str) -> PriceRecordView:
+    """The price record (the newest 20 entries) and the newest 10 audit entries about the
+    product."""
+    now = utcnow()
+    live = price_record.live_price(session, product_id, now)
+    entries = price_record.entries(session, product_id)[::-1][:20]
+    changes, _ = audit_page(session, AuditFilter(subject=sku), limit=10)
+    return PriceRecordView(
+        live_price=None if live is None else live.price,
+        prior_price=price_record.prior_lowest_price(session, product_id, now),
+        entries=entries,
+        changes=changes,
+    )

@@ -68,6 +68,9 @@ def test_approve_decline_and_supersede(
 ) -> None:
     linear_product(client, headers, "RV-1")
     approver = key_headers(db.settings, "approve")
+    nothing = client.get("/v1/products/RV-1/prices", headers=headers)
+    assert nothing.status_code == 200, nothing.text
+    assert nothing.json()["entries"] == [] and nothing.json()["live_price"] is None
     first = store_recommendation(client, headers, "RV-1")
     assert first["state"] == "proposed"
     assert math.isclose(first["recommended"]["price"], PROFIT_PEAK, abs_tol=0.01)
