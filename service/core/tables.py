@@ -150,7 +150,7 @@ RECOMMENDATION_STATES = ("proposed", "approved", "declined", "superseded")
 class RecommendationRow(Base):
     """A stored recommendation and where it stands on the reviewed path: ``proposed``
     until a person or an approval policy approves it (``approved``) or a person declines
-    it (``declined``), or a newer proposal for the product takes its place
+    it (``declined``), or a newer proposed one for the product takes its place
     (``superseded``). Only a proposed recommendation changes state."""
 
     __tablename__ = "recommendations"

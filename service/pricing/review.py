@@ -1,5 +1,5 @@
 """The reviewed path of a stored recommendation: approve (possibly at an edited price) or
-decline, by a person or an approval policy; newer proposals supersede older ones.
+decline, by a person or an approval policy; a newer proposed recommendation supersedes older ones.
 
 Every step is a conditional update (``... WHERE state = 'proposed'``): whatever runs at
 the same time, a recommendation is decided once, and a declined or superseded one is never
@@ -197,7 +197,7 @@ _SUPERSEDE = (
 def after_store(
     session: Session, stored: Sequence[tuple[int, int, str, dict[str, Any]]]
 ) -> dict[int, Decision]:
-    """Newly stored recommendations ``(id, product id, sku, result)``: older proposals of
+    """Newly stored recommendations ``(id, product id, sku, result)``: older proposed ones of
     their products are superseded, and each product's newest is approved at once when an
     approval policy covers it. Returns the approvals by recommendation id."""
     if not stored:
@@ -240,7 +240,7 @@ def _approve_by_policy(session: Session, rec_id: int, policy: Policy) -> Decisio
                 note=f"approved by policy {policy.name!r}",
             )
     except (Conflict, InvalidInput) as exc:
-        # The proposal stays for a person: say why no policy approved it.
+        # The recommendation stays proposed for a person: say why no policy approved it.
         write_audit(
             session,
             actor_key_id=None,

@@ -14,7 +14,7 @@ RecommendationState = Literal["proposed", "approved", "declined", "superseded"]
 STATE_HELP = (
     "Where the recommendation stands: `proposed` (stored, waiting for a person or an "
     "approval policy), `approved` (its price, or an edited one, is live from the approval's "
-    "time), `declined` (a person refused it) or `superseded` (a newer proposal for the "
+    "time), `declined` (a person refused it) or `superseded` (a newer proposed one for the "
     "product replaced it); null for an answer that was not stored"
 )
 Note = Annotated[str, StringConstraints(min_length=1, max_length=500)]
