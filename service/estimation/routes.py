@@ -8,6 +8,7 @@ from fastapi import APIRouter, Path, Query, Request, status
 
 from service.catalogue import products
 from service.catalogue.deps import ReadProduct, SkuPath
+from service.core.audit_trail import WRITTEN, mark
 from service.core.deps import APPROVE, READ, WRITE, ReadSession, SettingsDep, WriteSession
 from service.core.pagination import MAX_ID, cursor_int, decode_cursor, encode_cursor
 from service.core.responses import problems
@@ -119,7 +120,7 @@ def activate_fit(
         reason=body.reason if body else None,
         key_id=getattr(request.state, "key_id", None),
     )
-    request.state.audit = "written"  # the activation wrote its own, fuller audit entry
+    mark(request, WRITTEN)  # the activation wrote its own, fuller audit entry
     return fit_out(done.fit, sku)
 
 

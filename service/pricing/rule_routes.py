@@ -9,6 +9,7 @@ from fastapi import APIRouter, Path, Query, Request, status
 
 from service.access.auth import Principal
 from service.catalogue.deps import ReadProduct
+from service.core.audit_trail import WRITTEN, mark
 from service.core.deps import ADMIN, READ, ReadSession, WriteSession
 from service.core.pagination import MAX_ID
 from service.core.responses import problems
@@ -50,7 +51,7 @@ def add_jurisdiction_rule(
     principal: Annotated[Principal, ADMIN],
 ) -> RuleOut:
     rule = rules.add(session, values=body.model_dump(), actor_key_id=principal.key_id)
-    request.state.audit = "written"  # the rule wrote its own, fuller audit entry
+    mark(request, WRITTEN)  # the rule wrote its own, fuller audit entry
     return rule_out(rule, utcnow())
 
 
@@ -93,7 +94,7 @@ def end_jurisdiction_rule(
     principal: Annotated[Principal, ADMIN],
 ) -> RuleOut:
     rule = rules.end(session, rule_id=rule_id, actor_key_id=principal.key_id)
-    request.state.audit = "written"  # the rule wrote its own, fuller audit entry
+    mark(request, WRITTEN)  # the rule wrote its own, fuller audit entry
     return rule_out(rule, utcnow())
 
 
