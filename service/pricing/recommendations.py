@@ -248,6 +248,23 @@ def store(session: Session, priced: Sequence[Priced]) -> list[dict[str, Any]]:
     return answers
 
 
+def store_records(
+    session: Session, records: Sequence[dict[str, Any]], skus: dict[int, str]
+) -> None:
+    """A reprice job's recommendations (rows as :func:`store` writes them), stored like any
+    other: each product's older proposed ones are superseded and approval policies apply."""
+    if not records:
+        return
+    ids = session.connection().scalars(_INSERT_RECOMMENDATIONS, list(records)).all()
+    review.after_store(
+        session,
+        [
+            (row_id, r["product_id"], skus[r["product_id"]], r["result"])
+            for row_id, r in zip(ids, records, strict=True)
+        ],
+    )
+
+
 def _check_one_currency(family: str, currencies: dict[str, str]) -> None:
     """A family is priced into one total, which cannot add up different currencies."""
     if len(set(currencies.values())) <= 1:

@@ -5,18 +5,23 @@ from __future__ import annotations
 from collections.abc import Sequence
 from typing import Any
 
-from sqlalchemy import insert, select
+from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.core.db import session_scope
 from service.core.errors import ServiceError, WrongSign, failure_reason, is_outage
 from service.core.settings import Settings
-from service.core.tables import FitRow, JobRow, ProductRow, RecommendationRow, utcnow
+from service.core.tables import FitRow, JobRow, ProductRow, utcnow
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
 from service.jobs import queue as jobs
 from service.pricing import rule_limits, rules
-from service.pricing.recommendations import current_price, price_product
+from service.pricing.recommendations import (
+    current_price,
+    price_product,
+    store_records,
+    with_prior_price,
+)
 from service.pricing.schemas import OptimalPriceRequest
 
 
@@ -48,8 +53,7 @@ def run_reprice(
         with session_scope(reads) as session:
             records = price_batch(session, batch, request, job_id, progress)
         with session_scope(writes) as session:
-            if records:
-                session.execute(insert(RecommendationRow), records)
+            store_records(session, records, {p.id: p.sku for p, _, _ in batch})
             progress.done += len(batch)
             jobs.save_progress(session, job_id=job_id, progress=progress)
         if on_progress:
@@ -117,7 +121,9 @@ def price_batch(
                 known=in_effect,
             )
             found = price_product(fit, product, request, scenario=scenario, rules=limits)
-            record = rule_limits.split_binding(found.to_dict(), limits)
+            record = with_prior_price(
+                session, product.id, rule_limits.split_binding(found.to_dict(), limits)
+            )
         except WrongSign as exc:
             progress.counts["failed"] += 1
             progress.add_error(product.sku, f"refused: {exc.reason}")
@@ -138,7 +144,7 @@ def price_batch(
                 "product_id": product.id,
                 "fit_id": fit_id,
                 "objective": request.objective,
-                "request": {"job_id": job_id, **request.model_dump()},
+                "request": {"job_id": job_id, **request.model_dump(exclude={"store"})},
                 "result": record,
                 "created_at": utcnow(),
             }

@@ -10,13 +10,11 @@ from __future__ import annotations
 
 import time
 
-from sqlalchemy import insert
-
 from service.core.db import session_scope
-from service.core.tables import RecommendationRow
 from service.jobs import partitions
 from service.jobs import queue as jobs
 from service.pricing import reprice
+from service.pricing.recommendations import store_records
 
 
 def reprice_partition(task: partitions.PartitionTask) -> partitions.PartitionReport:
@@ -47,8 +45,7 @@ def reprice_partition(task: partitions.PartitionTask) -> partitions.PartitionRep
             records = reprice.price_batch(session, batch, request, task.job_id, progress)
         written = time.perf_counter()
         with session_scope(writes) as session:
-            if records:
-                session.execute(insert(RecommendationRow), records)
+            store_records(session, records, {p.id: p.sku for p, _, _ in batch})
             progress.done += len(batch)
             partitions.save(
                 session,

@@ -13,7 +13,9 @@ from typing import Any
 
 from fastapi.testclient import TestClient
 
+from service.core.db import make_engine
 from service.core.settings import Settings
+from service.jobs.worker import JobRunner
 from tests.plugins.storage import make_key
 
 WEEKS = [(dt.date(2025, 1, 6) + dt.timedelta(weeks=w)).isoformat() for w in range(40)]
@@ -61,3 +63,15 @@ def store_recommendation(
     )
     assert response.status_code == 200, response.text
     return dict(response.json())
+
+
+def run_queued_jobs(settings: Settings) -> list[int]:
+    """Run every queued job here, the way the worker thread would."""
+    engine = make_engine(settings)
+    runner = JobRunner(engine, settings)
+    done = []
+    while (job_id := runner.claim()) is not None:
+        runner.run(job_id)
+        done.append(job_id)
+    engine.dispose()
+    return done

@@ -19,6 +19,7 @@ from tests.plugins.review_cases import (
     UNIT_COST,
     key_headers,
     linear_product,
+    run_queued_jobs,
     store_recommendation,
 )
 from tests.plugins.storage import Database, row_count
@@ -188,6 +189,46 @@ def test_policies_approve_within_their_limits(
     ).json()
     assert [p["ended_at"] is not None for p in listed] == [True]
     assert client.get("/v1/approval-policies", headers=headers).json() == []
+
+
+def test_a_reprice_job_supersedes_and_policies_approve(
+    client: TestClient, db: Database, headers: dict[str, str]
+) -> None:
+    linear_product(client, headers, "JOB-1")
+    linear_product(client, headers, "JOB-2", current=10.0)
+    approver = key_headers(db.settings, "approve")
+    earlier = store_recommendation(client, headers, "JOB-1")
+    policy = client.post(
+        "/v1/approval-policies",
+        json={"name": "catalogue", "applies_to": "catalogue", "max_change_pct": 10},
+        headers=approver,
+    ).json()
+    job = client.post(
+        "/v1/jobs",
+        json={"kind": "reprice", "request": {"constraints": {"max_change_pct": 5}}},
+        headers=headers,
+    )
+    assert job.status_code == 202, job.text
+    run_queued_jobs(db.settings)
+    states = {
+        r["sku"]: r
+        for r in client.get("/v1/recommendations", params={"state": "any"}, headers=headers).json()[
+            "items"
+        ]
+    }
+    # JOB-1 moves under 5% from 14.5: approved by the policy, its earlier one superseded.
+    assert states["JOB-1"]["state"] == "approved"
+    assert states["JOB-1"]["policy_id"] == policy["id"]
+    assert states["JOB-1"]["prior_price"] is None  # a rise carries no prior price
+    superseded = client.get(
+        "/v1/recommendations", params={"state": "superseded"}, headers=headers
+    ).json()["items"]
+    assert [r["id"] for r in superseded] == [earlier["id"]]
+    # JOB-2 from 10.0 capped at +5% is still a move under 10%: approved as well, and the
+    # price record of each holds one policy entry.
+    for sku in ("JOB-1", "JOB-2"):
+        [entry] = client.get(f"/v1/products/{sku}/prices", headers=headers).json()["entries"]
+        assert entry["policy_id"] == policy["id"] and entry["set_by_key_id"] is None
 
 
 def test_sixteen_racing_approvals_leave_one_live_price(
