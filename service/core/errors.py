@@ -204,6 +204,11 @@ LIBRARY_ERRORS: tuple[type[Exception], ...] = (
 """The numerical library's errors that :func:`from_library` turns into domain errors."""
 
 
+RULE_LIMIT_PREFIX = "rule:"
+"""How the service names a jurisdiction rule's price limit to the library
+(:mod:`service.pricing.rule_limits`), so that answers can tell rules from constraints."""
+
+
 def from_library(
     exc: Exception,
     *,
@@ -254,9 +259,18 @@ def from_library(
         )
     if isinstance(exc, InfeasibleConstraintsError):
         return InvalidInput(
-            f"no price satisfies every constraint: {exc}",
+            "no price satisfies every constraint and jurisdiction rule: "
+            + str(exc).replace(RULE_LIMIT_PREFIX, "jurisdiction rule ")
+            if any(n.startswith(RULE_LIMIT_PREFIX) for n in exc.constraints)
+            else f"no price satisfies every constraint: {exc}",
             errors=[
-                ErrorItem(field=f"constraints.{name}", message="conflicts with the others")
+                ErrorItem(
+                    field="rules",
+                    message=f"jurisdiction rule {name.removeprefix(RULE_LIMIT_PREFIX)} "
+                    "conflicts with the others",
+                )
+                if name.startswith(RULE_LIMIT_PREFIX)
+                else ErrorItem(field=f"constraints.{name}", message="conflicts with the others")
                 for name in exc.constraints
             ],
         )

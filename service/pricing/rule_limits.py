@@ -28,7 +28,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from models import NamedLimit
-from service.core.errors import NotFound
+from service.core.errors import RULE_LIMIT_PREFIX, NotFound
 from service.core.tables import ProductRow, utcnow
 from service.pricing import price_record
 from service.pricing.rules import (
@@ -41,7 +41,7 @@ from service.pricing.rules import (
     in_effect,
 )
 
-PREFIX = "rule:"
+PREFIX = RULE_LIMIT_PREFIX
 """How a rule's limit is named to the library, so that its name comes back apart from the
 business constraints'."""
 TOLERANCE = 1e-9

@@ -53,7 +53,16 @@ def test_no_sale_below_cost(shop: TestClient, admin: dict[str, str]) -> None:
         headers=admin,
     )
     assert conflict.status_code == 422  # no price meets both: the answer names the rule
-    assert "Below-cost ban" in conflict.json()["detail"]
+    problem = conflict.json()
+    assert "jurisdiction rule Below-cost ban needs a price of at least 7" in problem["detail"]
+    assert "rule:Below" not in problem["detail"]
+    assert {
+        "field": "rules",
+        "message": "jurisdiction rule Below-cost ban conflicts with the others",
+    } in problem["errors"]
+    assert {"field": "constraints.max_price", "message": "conflicts with the others"} in (
+        problem["errors"]
+    )
 
 
 def test_emergency_increase_cap(shop: TestClient, db: Database, admin: dict[str, str]) -> None:
