@@ -8,6 +8,7 @@ unusable for fitting, so nothing is dropped silently.
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import Final
 
@@ -271,3 +272,19 @@ def build_design(history: History, spec: ModelSpec, form: str) -> Design:
         n_window_excluded=start,
         window_excluded_from=str(history.periods[0]) if start else None,
     )
+
+
+def event_covariates(
+    covariates: Sequence[str], variables: Mapping[str, FloatArray]
+) -> list[tuple[str, ...]]:
+    """Per product (rows of 2-D values; a 1-D array is one product): the covariates whose
+    fitted values are all 0 or 1. Such a driver marks an event (a promotion, a holiday) that
+    a default scenario leaves off; any other value makes it an amount, held at its latest."""
+    names = [c for c in covariates if c in variables]
+    if not names:
+        first = next(iter(variables.values()), np.zeros(1))
+        return [()] * np.atleast_2d(first).shape[0]
+    flags = np.stack(
+        [np.all(np.isin(np.atleast_2d(variables[n]), (0.0, 1.0)), axis=1) for n in names], axis=1
+    )
+    return [tuple(n for n, on in zip(names, row, strict=True) if on) for row in flags.tolist()]

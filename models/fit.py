@@ -17,7 +17,7 @@ import numpy as np
 
 from models.batch import fit_stacked, stacked_path_applies
 from models.checks import equation_text, fit_warnings
-from models.design import build_design
+from models.design import build_design, event_covariates
 from models.engine import FittedDesign, check_size, fit_design
 from models.errors import InsufficientDataError
 from models.forecast import smearing_factor
@@ -71,6 +71,7 @@ def _assemble(
     var_values = {k: v[usable] for k, v in design.variables.items()}
     var_means = {k: float(v.mean()) for k, v in var_values.items()}
     var_latest = {k: float(v[-1]) for k, v in var_values.items()}
+    (events,) = event_covariates(spec.covariates, var_values)
     # Summed along contiguous rows, as the batched path does, so both give the same digits.
     col_means = np.ascontiguousarray(x.T).mean(axis=1).tolist()
     col_latest = x[-1].tolist()
@@ -110,6 +111,7 @@ def _assemble(
         variable_latest=var_latest,
         regressor_means={n: col_means[j] for j, n in enumerate(names) if j > 0},
         regressor_latest={n: col_latest[j] for j, n in enumerate(names) if j > 0},
+        variable_events=events,
         price_range=(float(price.min()), float(price.max())),
         window=DataWindow(
             first_period=str(periods[0]),

@@ -49,8 +49,9 @@ def predict(
 ) -> Prediction:
     """Expected units with a prediction interval, revenue and profit.
 
-    Variables not given stay at the latest fitted period's values, as do the
-    seasonal and trend terms.
+    Variables not given take :attr:`DemandFit.default_values` (the latest fitted period's
+    values, with events such as a promotion or a holiday off); seasonal and trend terms
+    take the latest fitted period's.
 
     Parameters
     ----------
@@ -82,7 +83,7 @@ def predict(
     >>> round(p.expected_units), p.interval_low < p.expected_units < p.interval_high
     (100, True)
     """
-    variables = dict(fit.variable_latest)
+    variables = fit.default_values
     overrides = {"price": float(price), **(covariates or {}), **(cross_prices or {})}
     unknown = set(overrides) - set(variables)
     if unknown:

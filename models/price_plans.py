@@ -10,8 +10,9 @@ price only.
 The expected narrowing follows from the least-squares variance of the coefficients,
 ``Cov(b) = s^2 (X'X)^-1``. The fit's covariance gives back ``X'X = s^2 Cov^-1`` (``X'WX`` for
 ``poisson``, the information its errors imply with robust errors); the test periods add their
-design rows ``Z`` (the planned own price; covariates as given, other drivers at the latest
-fitted period's values; for ``poisson`` weighted by the expected units), and the fitted
+design rows ``Z`` (the planned own price; covariates as given, other drivers at the fit's
+default values, the latest fitted period's with events off; for ``poisson`` weighted by the
+expected units), and the fitted
 periods the spec's data window will drop to make room for them are taken off in proportion
 (``k``, the share kept: the window keeps the latest periods, so the test's stay in). So
 
@@ -45,7 +46,7 @@ from models.predict import predict
 from models.result import DemandFit
 
 LOG_PRICE_FORMS: Final = ("log-log", "poisson")
-UPPER_LEVEL: Final = 0.9
+UPPER_LEVEL: Final = 0.95
 """Quantile of the profit given up that a plan states as its upper figure."""
 COST_DRAWS: Final = 2000
 
@@ -134,7 +135,9 @@ def plan_price_test(
 
     own = fit.own_price
     coef, se = own.estimate, own.std_error
-    units_at_centre = float(predict(fit, price=centre_price).expected_units)
+    units_at_centre = float(
+        predict(fit, price=centre_price, covariates=covariates or None).expected_units
+    )
     units = _units(fit.form, coef, prices, centre_price, units_at_centre)
 
     info_now = _information(fit)
@@ -236,15 +239,17 @@ def _information(fit: DemandFit) -> FloatArray:
 
 def _test_rows(fit: DemandFit, prices: FloatArray, covariates: Mapping[str, float]) -> FloatArray:
     """The design rows of the test periods: the planned own price; covariates as given,
-    else (like every other driver) at the latest fitted period's values."""
+    else (like every other driver) at the fit's default values (the latest fitted period's,
+    events off); seasonal and trend terms at the latest fitted period's."""
+    values = {**fit.default_values, **covariates}
     rows = np.empty((len(prices), len(fit.terms)))
     for j, term in enumerate(fit.terms):
         if term.kind == "intercept":
             rows[:, j] = 1.0
         elif term.kind == "own_price":
             rows[:, j] = np.log(prices) if term.transform == "log" else prices
-        elif term.kind == "covariate" and term.source is not None and term.source in covariates:
-            rows[:, j] = term.column(covariates[term.source])
+        elif term.source is not None:
+            rows[:, j] = term.column(values[term.source])
         else:
             rows[:, j] = fit.regressor_latest[term.name]
     return rows

@@ -187,9 +187,13 @@ class DemandFit:
         Intervals use Student's t with ``df_resid`` (False: normal, for Poisson).
     variable_means, variable_latest : dict
         Price, cross prices and covariates: means over the fitted periods and the
-        latest fitted period's values (points for elasticities and predictions).
+        latest fitted period's values (points for elasticities; predictions and prices
+        start from :attr:`default_values`).
     regressor_means, regressor_latest : dict
         Means and latest values of every non-intercept design column, by term name.
+    variable_events : tuple of str
+        Covariates that took only the values 0 and 1 in the fitted periods (a promotion, a
+        holiday): events, which :attr:`default_values` turns off.
     price_range : tuple of float
         Lowest and highest own price in the fitted periods.
     candidate_scores : dict
@@ -235,6 +239,16 @@ class DemandFit:
     smearing: float | None = None
     candidate_scores: dict[str, float | None] = field(default_factory=dict)
     pooled: PooledElasticity | None = None
+    variable_events: tuple[str, ...] = ()
+
+    @property
+    def default_values(self) -> dict[str, float]:
+        """The values a driver takes when a prediction or a price does not say: the latest
+        fitted period's, with events off. A regular price is set for a regular period: the
+        latest period may be a holiday or a promotion, which the caller turns on by name."""
+        values = dict(self.variable_latest)
+        values.update(dict.fromkeys(self.variable_events, 0.0))
+        return values
 
     @property
     def term_names(self) -> tuple[str, ...]:
@@ -294,6 +308,7 @@ class DemandFit:
                 dict(scores) if _numbers_ok(filter(_not_none, scores.values())) else clean(scores)
             ),
             "pooled": _record(self.pooled),
+            "variable_events": list(self.variable_events),
         }
 
     def _numbers_are_plain(self) -> bool:
@@ -382,6 +397,8 @@ class DemandFit:
                 str(k): _opt_num(v) for k, v in (data.get("candidate_scores") or {}).items()
             },
             pooled=None if pooled is None else PooledElasticity(**pooled),
+            # Fits stored before events were recorded turn none off.
+            variable_events=tuple(str(k) for k in data.get("variable_events") or ()),
         )
 
 

@@ -19,7 +19,7 @@ from models.checks import (
     equation_text,
     warnings_from_figures,
 )
-from models.design import PRICE
+from models.design import PRICE, event_covariates
 from models.estimate import critical_value
 from models.history import History
 from models.ols import OLSStack
@@ -190,6 +190,7 @@ def stack_records(
             "window": window,
             "smearing": smearing.tolist() if layout.log_response else [None] * b,
             "candidate_scores": scores,
+            "variable_events": event_covariates(spec.covariates, variables),
         },
         {
             "spec": spec,

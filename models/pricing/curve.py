@@ -26,14 +26,15 @@ PRICE: Final = "price"
 
 
 def scenario_values(fit: DemandFit, scenario: Mapping[str, float] | None) -> dict[str, float]:
-    """The fit's latest variable values with the scenario's overrides (own price excluded).
+    """The fit's default values (:attr:`DemandFit.default_values`: the latest fitted period,
+    events off) with the scenario's overrides (own price excluded).
 
     Raises
     ------
     PricingInputError
         The scenario names the own price, an unknown variable, or a non-finite value.
     """
-    values = {k: float(v) for k, v in fit.variable_latest.items() if k != PRICE}
+    values = {k: float(v) for k, v in fit.default_values.items() if k != PRICE}
     for key, value in (scenario or {}).items():
         if key == PRICE:
             raise PricingInputError(
@@ -121,7 +122,7 @@ class DemandCurve:
         *,
         params: FloatArray | None = None,
     ) -> DemandCurve:
-        """The curve of a fit at a scenario (unnamed variables at their latest values).
+        """The curve of a fit at a scenario (unnamed variables at their default values).
 
         Seasonal and trend terms take the latest fitted period's values. ``params`` of
         shape ``(draws, k)`` gives one curve per coefficient draw (offsets and

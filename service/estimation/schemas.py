@@ -258,7 +258,9 @@ class ElasticitiesOut(BaseModel):
 class PredictRequest(Strict):
     price: PositiveMoney
     covariates: dict[CovariateName, FiniteNumber] = Field(
-        default_factory=dict, description="Covariate values; others stay at the latest period's"
+        default_factory=dict,
+        description="Covariate values; others take the latest fitted period's, events "
+        "(covariates only ever 0 or 1, such as a promotion) off",
     )
     cross_prices: dict[Sku, PositiveMoney] = Field(
         default_factory=dict, description="Other products' prices; others stay at the latest"
@@ -283,7 +285,7 @@ class PredictionOut(BaseModel):
     unit_cost: float | None
     point: dict[str, float | None] = Field(
         description="Every variable's value the prediction used: those sent, the rest at "
-        "the latest fitted period's values"
+        "the latest fitted period's values with events (covariates only ever 0 or 1) off"
     )
     warnings: list[WarningOut]
 

@@ -78,7 +78,8 @@ class OptimalPriceRequest(DecisionFields, Strict):
     scenario: dict[ScenarioName, ScenarioValue] = Field(
         default_factory=dict,
         description="Covariate values and other products' prices (by sku); the rest "
-        "stay at the latest fitted period's values",
+        "take the latest fitted period's values, with events (covariates only ever 0 or 1, "
+        "such as a promotion or a holiday) off",
     )
     unit_cost: Money | None = Field(default=None, description="Default: the product's")
     current_price: PositiveMoney | None = Field(
@@ -197,7 +198,8 @@ class RecommendationOut(DecisionAnswer, RuleFields):
     curve: list[CurvePointOut] | None = None
     scenario: dict[str, Any] = Field(
         description="The other variables' values the demand was evaluated at: those sent "
-        "in the request's scenario, the rest at the latest fitted period's values"
+        "in the request's scenario, the rest at the latest fitted period's values with "
+        "events (covariates only ever 0 or 1) off"
     )
     optimum: Optimum = Field(description=OPTIMUM_HELP)
     search: Search = Field(description=SEARCH_HELP)

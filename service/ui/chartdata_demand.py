@@ -98,7 +98,7 @@ def _scenario(
     fit: DemandFit, recommendation: Recommendation | None, period: str
 ) -> tuple[dict[str, float], str]:
     """Values of the other drivers: the recommendation's if it used this fit, else the latest."""
-    latest = {k: v for k, v in fit.variable_latest.items() if k != "price" and math.isfinite(v)}
+    latest = {k: v for k, v in fit.default_values.items() if k != "price" and math.isfinite(v)}
     if recommendation is not None:
         stored = recommendation.result.get("scenario") or {}
         given = {
@@ -108,7 +108,8 @@ def _scenario(
         }
         if given:
             return {**latest, **given}, "the latest recommendation's scenario"
-    return latest, f"the latest fitted {period}"
+    events = " (events off)" if fit.variable_events else ""
+    return latest, f"the latest fitted {period}{events}"
 
 
 def _grid(fit: DemandFit, *prices: float | None) -> np.ndarray:

@@ -56,9 +56,11 @@ def expected_units(
 ) -> np.ndarray:
     """Expected units at own prices ``prices`` (any shape) from the coefficient table.
 
-    ``values`` overrides the latest variable values (arrays broadcast with ``prices``).
+    ``values`` overrides the defaults: the latest variable values with events (covariates
+    only ever 0 or 1) off (arrays broadcast with ``prices``).
     """
-    point: dict[str, np.ndarray | float] = {**fit.variable_latest, **(values or {})}
+    events_off = dict.fromkeys(fit.variable_events, 0.0)
+    point: dict[str, np.ndarray | float] = {**fit.variable_latest, **events_off, **(values or {})}
     prices = np.asarray(prices, dtype=float)
     eta = np.zeros(prices.shape)
     for term, row in zip(fit.terms, fit.coefficients, strict=True):
