@@ -11,7 +11,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from service.catalogue import demo
-from tests.plugins.storage import Database, row_count
+from tests.plugins.storage import Database, make_key, row_count
 
 pytestmark = pytest.mark.storage
 WEEKS = [(dt.date(2025, 1, 6) + dt.timedelta(weeks=w)).isoformat() for w in range(40)]
@@ -227,15 +227,15 @@ def test_wrong_sign_is_refused_unless_allowed(
     }
     fit = client.post("/v1/products/TEA-001/fits", json={"spec": naive}, headers=headers).json()
     assert fit["status"] == "rejected"
-    # A rejected fit never becomes active; make it the active one to see the refusal.
-    from sqlalchemy import text
-
-    from service.core.db import make_engine
-
-    engine = make_engine(db.settings)
-    with engine.begin() as conn:
-        conn.execute(text("UPDATE fits SET status = 'active' WHERE id = :id"), {"id": fit["id"]})
-    engine.dispose()
+    # A person (the approve scope) activates the rejected fit, with a reason; pricing it
+    # is then refused unless the request allows the wrong sign.
+    approver = {"Authorization": f"Bearer {make_key(db.settings, 'approve')}"}
+    activated = client.post(
+        f"/v1/products/TEA-001/fits/{fit['id']}/activate",
+        json={"reason": "reviewed: priced only with allow_wrong_sign"},
+        headers=approver,
+    )
+    assert activated.status_code == 200, activated.text
     refused = client.post("/v1/products/TEA-001/optimal-price", json={}, headers=headers)
     assert refused.status_code == 409
     assert "allow_wrong_sign" in refused.json()["detail"]
