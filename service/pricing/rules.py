@@ -193,6 +193,13 @@ def listed(
     query = select(JurisdictionRuleRow).order_by(JurisdictionRuleRow.id)
     if sku is not None or family is not None:
         query = query.where(_applies(sku, family))
+    if in_effect_at is not None:  # ended ones never come back: leave them in the database
+        query = query.where(
+            or_(
+                JurisdictionRuleRow.ended_at.is_(None),
+                JurisdictionRuleRow.ended_at > in_effect_at,
+            )
+        )
     rules = [_rule(r) for r in session.scalars(query)]
     if in_effect_at is not None:
         rules = [r for r in rules if r.in_effect(in_effect_at)]
