@@ -66,6 +66,7 @@ def _demo(args: argparse.Namespace, settings: Settings) -> int:
 
 def _keys(args: argparse.Namespace, settings: Settings) -> int:
     from service.access import auth
+    from service.core.audit import write_audit
     from service.core.db import make_engine, make_session_factory, session_scope
 
     engine = make_engine(settings)
@@ -74,6 +75,17 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
         with session_scope(factory) as session:
             if args.action == "create":
                 new = auth.create_key(session, name=args.name, scopes=args.scope)
+                write_audit(
+                    session,
+                    actor_key_id=None,
+                    action="create_api_key",
+                    subject=f"key:{new.row.id}",
+                    details={
+                        "name": args.name,
+                        "scopes": list(new.row.scopes),
+                        "by": "command line",
+                    },
+                )
                 scopes = ", ".join(new.row.scopes)
                 print(f"created key {new.row.id} ({args.name}) with scopes {scopes}")
                 print("store the secret now; it is not shown again:")
@@ -86,6 +98,13 @@ def _keys(args: argparse.Namespace, settings: Settings) -> int:
                     print(f"{row.id}\t{row.name}\t{','.join(row.scopes)}\t{state}\t{used}")
             else:
                 auth.revoke_key(session, key_id=args.key_id)
+                write_audit(
+                    session,
+                    actor_key_id=None,
+                    action="revoke_api_key",
+                    subject=f"key:{args.key_id}",
+                    details={"by": "command line"},
+                )
                 print(f"revoked key {args.key_id}")
     finally:
         engine.dispose()

@@ -24,6 +24,8 @@ from service.pricing import price_record, rule_limits
 from service.pricing.policies import Policy, active_policies, matching_policy
 
 PROPOSED, APPROVED, DECLINED, SUPERSEDED = "proposed", "approved", "declined", "superseded"
+CLOCK_SKEW = dt.timedelta(minutes=1)
+"""How far in the past an approval's effective_at may lie (clocks of callers differ)."""
 
 
 @dataclass(frozen=True)
@@ -109,6 +111,13 @@ def approve(
         )
     now = utcnow()
     start = to_utc(effective_at) if effective_at is not None else now
+    if start < now - CLOCK_SKEW:
+        # The record says what was charged: a price cannot have gone live before it was
+        # approved (a correction is a new entry from now on).
+        raise InvalidInput(
+            "a price cannot go live before it is approved; give an effective_at from now on",
+            errors=[ErrorItem(field="effective_at", message="is in the past")],
+        )
     breaches = rule_breaches(session, product_id=row.product_id, price=chosen, at=start)
     if breaches:
         raise Conflict(

@@ -30,8 +30,8 @@ class ApprovalIn(Strict):
     note: Note | None = Field(default=None, description="Why, in a sentence")
     effective_at: DateTimeText | None = Field(
         default=None,
-        description="When the price goes live (RFC 3339); default now. It must be after the "
-        "start of the newest price in the product's price record",
+        description="When the price goes live (RFC 3339); default now. It may not lie in the "
+        "past, and must be after the start of the newest price in the product's price record",
     )
 
 

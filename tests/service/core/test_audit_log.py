@@ -248,3 +248,23 @@ def test_the_log_is_for_admins_filtered_paged_and_unchangeable(
         assert client.request(method, "/v1/audit", headers=admin).status_code == 405
     spec = json.loads(OPENAPI.read_text())
     assert set(spec["paths"]["/v1/audit"]) == {"get"}
+
+
+def test_key_changes_on_the_command_line_are_audited(
+    db: Database,
+    client: TestClient,
+    capsys: pytest.CaptureFixture[str],
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    from service.cli import main as cli_main
+
+    monkeypatch.setattr("service.cli.get_settings", lambda: db.settings)
+    admin = key_headers(db.settings, "admin")
+    assert cli_main(["keys", "create", "--name", "batch", "--scope", "read"]) == 0
+    key_id = capsys.readouterr().out.strip().splitlines()[-1].split("_")[1]
+    assert cli_main(["keys", "revoke", key_id]) == 0
+    entries = client.get("/v1/audit", params={"subject": f"key:{key_id}"}, headers=admin).json()
+    assert [(e["action"], e["actor_key_id"], e["details"]["by"]) for e in entries["items"]] == [
+        ("revoke_api_key", None, "command line"),
+        ("create_api_key", None, "command line"),
+    ]

@@ -5,6 +5,7 @@ their limits, and every approval extends the price record."""
 from __future__ import annotations
 
 import concurrent.futures
+import datetime as dt
 import math
 import threading
 
@@ -86,6 +87,12 @@ def test_approve_decline_and_supersede(
         ).status_code
         == 403
     )
+    past = client.post(
+        f"/v1/recommendations/{second['id']}/approve",
+        json={"effective_at": "2020-01-01T00:00:00Z"},
+        headers=approver,
+    )
+    assert past.status_code == 422 and past.json()["errors"][0]["field"] == "effective_at"
     approved = client.post(
         f"/v1/recommendations/{second['id']}/approve",
         json={"price": 13.99, "note": "rounded to a shelf price"},
@@ -146,6 +153,26 @@ def test_a_lowered_price_carries_the_prior_price(
     product = client.get("/v1/products/PP-1", headers=headers).json()
     assert (product["live_price"], product["prior_price"]) == (16.0, 16.0)
     assert product["price_changed_at"] == record["last_change"]
+
+
+def test_a_price_approved_for_later_goes_live_then(
+    client: TestClient, db: Database, headers: dict[str, str]
+) -> None:
+    linear_product(client, headers, "LATER-1")
+    approver = key_headers(db.settings, "approve")
+    rec = store_recommendation(client, headers, "LATER-1")
+    later = (dt.datetime.now(dt.UTC) + dt.timedelta(days=2)).replace(microsecond=0)
+    approved = client.post(
+        f"/v1/recommendations/{rec['id']}/approve",
+        json={"effective_at": later.isoformat()},
+        headers=approver,
+    )
+    assert approved.status_code == 200, approved.text
+    assert dt.datetime.fromisoformat(approved.json()["effective_from"]) == later
+    record = client.get("/v1/products/LATER-1/prices", headers=headers).json()
+    assert record["live_price"] is None and len(record["entries"]) == 1
+    [pulled] = client.get("/v1/recommendations", headers=headers).json()["items"]
+    assert dt.datetime.fromisoformat(pulled["effective_from"]) == later
 
 
 def test_policies_approve_within_their_limits(
