@@ -40,6 +40,7 @@ from models import (
     shrink_own_price,
 )
 from models._typing import FloatArray
+from models.design import event_covariates
 from models.scenario import COVARIATES, LOG_COVARIATES, ScenarioProduct
 from service.core.settings import Settings
 from service.estimation.gates import quality_gates
@@ -120,11 +121,15 @@ def _tea_case(product: ScenarioProduct) -> Case:
         cross_prices=tuple(sorted(truth.cross_price_coefs)),
     )
     fit, refused = _fit_or_refusal(product.history, spec)
+    # The true curve at the values the recommendation evaluates: the fit's default values
+    # (the latest fitted period's, events off); for a refused product the same rule.
     if fit is not None:
-        latest = dict(fit.variable_latest)
+        latest = fit.default_values
     else:
         h = product.history
+        (events,) = event_covariates(tuple(h.covariates), h.covariates)
         latest = {k: float(v[-1]) for k, v in {**h.covariates, **h.cross_prices}.items()}
+        latest |= dict.fromkeys(events, 0.0)
     cross = {k: v for k, v in latest.items() if k in truth.cross_price_coefs}
     covariates = {k: v for k, v in latest.items() if k in truth.covariate_coefs}
     cost = product.unit_cost
