@@ -139,6 +139,8 @@ def test_every_operation(fuzz_target: tuple[FastAPI, str]) -> None:
 
 # Rows a workflow may add (SQLite), children first; rows present before the test are kept.
 SCENARIO_TABLES = (
+    "price_entries",
+    "approval_policies",
     "recommendations",
     "fits",
     "observations",
