@@ -77,7 +77,8 @@ def _not_proposed(recommendation_id: int, state: str, verb: str) -> Conflict:
     )
 
 
-def _decide(session: Session, *, recommendation_id: int, verb: str, values: dict[str, Any]) -> bool:
+def _decide(session: Session, *, recommendation_id: int, values: dict[str, Any]) -> bool:
+    """Move a recommendation out of ``proposed`` if it still is (False if not)."""
     done = session.execute(
         update(RecommendationRow)
         .where(RecommendationRow.id == recommendation_id, RecommendationRow.state == PROPOSED)
@@ -132,7 +133,7 @@ def approve(
         "approved_price": chosen,
         "note": note,
     }
-    if not _decide(session, recommendation_id=recommendation_id, verb="approved", values=values):
+    if not _decide(session, recommendation_id=recommendation_id, values=values):
         state = session.scalar(
             select(RecommendationRow.state).where(RecommendationRow.id == recommendation_id)
         )
@@ -174,7 +175,7 @@ def decline(
     row, sku = _row_and_sku(session, recommendation_id)
     now = utcnow()
     values = {"state": DECLINED, "decided_at": now, "decided_by_key_id": actor_key_id, "note": note}
-    if not _decide(session, recommendation_id=recommendation_id, verb="declined", values=values):
+    if not _decide(session, recommendation_id=recommendation_id, values=values):
         state = session.scalar(
             select(RecommendationRow.state).where(RecommendationRow.id == recommendation_id)
         )
