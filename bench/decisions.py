@@ -16,7 +16,10 @@ Rules compared, all measured in the same run:
 * ``cautious``: maximise the 10th percentile of profit;
 * each of the three with the do-no-harm check (``+ check``);
 * the same from fits whose own-price elasticity is shrunk toward the family and the
-  catalogue (``shrunk``, :func:`models.shrink_own_price` over each seed's accepted fits).
+  catalogue (``shrunk``, :func:`models.shrink_own_price` over each seed's accepted fits);
+* ``calibrated``: each product moves the share of its point move that the catalogue's
+  spread of moves supports (:mod:`models.pricing.calibrate`, over each seed's catalogue;
+  ``cautious`` with the check where fewer than three products can be priced).
 
 Two ceilings, which no rule can be expected to reach:
 
@@ -39,6 +42,7 @@ import math
 import sys
 import time
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -54,6 +58,12 @@ from models.errors import (  # noqa: E402
     InfeasibleConstraintsError,
     UnboundedObjectiveError,
     WrongSignError,
+)
+from models.pricing.calibrate import (  # noqa: E402
+    MoveEvidence,
+    calibrated_limit,
+    catalogue_spread,
+    move_evidence,
 )
 from models.pricing.constraints import price_limits  # noqa: E402
 from models.pricing.curve import scenario_values  # noqa: E402
@@ -72,6 +82,7 @@ RULES: tuple[tuple[str, str, bool, bool], ...] = (
     ("shrunk exp. + check", "expected", True, True),
     ("shrunk caut. + check", "cautious", True, True),
 )
+CALIBRATED = "calibrated"
 CEILINGS = ("knows elasticity", "knows prior")
 KEEP = "keep current"
 PRIOR_POINTS = 201
@@ -156,9 +167,45 @@ def ceilings(case: Case, law: PredictorLaw, low: float, high: float) -> dict[str
     return prices
 
 
-def price_case(case: Case) -> dict[str, float]:
+def evidence_of(case: Case) -> MoveEvidence | None:
+    if case.fit is None:
+        return None
+    return move_evidence(
+        case.fit,
+        unit_cost=case.unit_cost,
+        current_price=case.current_price,
+        constraints=case.constraints,
+    )
+
+
+def calibrated_price(case: Case, evidence: MoveEvidence | None, tau2: float | None) -> float:
+    """The calibrated rule's price: the point optimum within the calibrated reach, or the
+    cautious choice with the check where the catalogue gives no spread."""
+    if case.fit is None or evidence is None:
+        return case.current_price
+    constraints, rule, check = case.constraints, "cautious", True
+    if tau2 is not None:
+        limit = calibrated_limit(evidence, tau2, case.current_price)
+        constraints = replace(constraints, named_limits=(*constraints.named_limits, limit))
+        rule, check = "point", False
+    try:
+        return optimal_price(
+            case.fit,
+            unit_cost=case.unit_cost,
+            current_price=case.current_price,
+            constraints=constraints,
+            decide_by=rule,
+            no_harm_check=check,
+        ).recommended.price
+    except (WrongSignError, PricingInputError):
+        return case.current_price
+
+
+def price_case(
+    case: Case, evidence: MoveEvidence | None = None, tau2: float | None = None
+) -> dict[str, float]:
     """Each rule's price for one case (the current price where it refuses)."""
-    prices = {KEEP: case.current_price}
+    prices = {KEEP: case.current_price, CALIBRATED: calibrated_price(case, evidence, tau2)}
     for name, rule, check, shrunk in RULES:
         prices[name] = case.current_price
         fit = case.shrunk if shrunk else case.fit
@@ -189,12 +236,14 @@ def price_case(case: Case) -> dict[str, float]:
     return prices
 
 
-def score_case(case: Case) -> dict[str, float]:
+def score_case(
+    case: Case, evidence: MoveEvidence | None = None, tau2: float | None = None
+) -> dict[str, float]:
     """True profit at each rule's price, as a percentage of the best allowed true profit."""
     low, high = allowed_range(case)
     best_price = argmax_on(case.true_profit, low, high)
     best = float(case.true_profit(np.array([best_price]))[0])
-    prices = price_case(case)
+    prices = price_case(case, evidence, tau2)
     return {
         name: 100.0 * float(case.true_profit(np.array([p]))[0]) / best for name, p in prices.items()
     }
@@ -202,7 +251,7 @@ def score_case(case: Case) -> dict[str, float]:
 
 def summary(scores: list[dict[str, float]]) -> list[tuple[str, float, float, float, float]]:
     rows = []
-    for name in (KEEP, *[r[0] for r in RULES], *CEILINGS):
+    for name in (KEEP, *[r[0] for r in RULES], CALIBRATED, *CEILINGS):
         values = np.array([s[name] for s in scores])
         rows.append(
             (
@@ -224,16 +273,19 @@ def print_table(generator: str, scores: list[dict[str, float]], refused: int) ->
         print(f"{name:<22}{median:>10.1f}{p10:>12.1f}{share:>13.0f}%{mean:>10.2f}")
 
 
-def run(generators: dict[str, Callable[[], Iterator[Case]]], total: int) -> None:
+def run(generators: dict[str, Callable[[], Iterator[list[Case]]]], total: int) -> None:
     start = time.perf_counter()
     results: dict[str, list[dict[str, float]]] = {name: [] for name in generators}
     refused: dict[str, int] = dict.fromkeys(generators, 0)
     with tqdm(total=total, desc="products", unit="product") as bar:
-        for name, cases in generators.items():
-            for case in cases():
-                results[name].append(score_case(case))
-                refused[name] += case.refused is not None
-                bar.update()
+        for name, catalogues in generators.items():
+            for cases in catalogues():  # one catalogue (seed) at a time: calibrated needs it
+                evidence = [evidence_of(case) for case in cases]
+                tau2 = catalogue_spread([e for e in evidence if e is not None])
+                for case, found in zip(cases, evidence, strict=True):
+                    results[name].append(score_case(case, found, tau2))
+                    refused[name] += case.refused is not None
+                    bar.update()
     for name, scores in results.items():
         print_table(name, scores, refused[name])
     print(f"\n{time.perf_counter() - start:.0f} s")
@@ -251,17 +303,17 @@ def main(argv: list[str] | None = None) -> None:
     if args.quick:
         tea, market, per_market = 1, 1, 6
 
-    def tea_cases() -> Iterator[Case]:
+    def tea_cases() -> Iterator[list[Case]]:
         for seed in range(1, tea + 1):
-            yield from tea_shop_cases(seed)
+            yield list(tea_shop_cases(seed))
 
-    def market_cases() -> Iterator[Case]:
+    def market_cases() -> Iterator[list[Case]]:
         for seed in range(1, market + 1):
-            yield from market_share_cases(seed, per_market)
+            yield list(market_share_cases(seed, per_market))
 
-    def near_best_cases() -> Iterator[Case]:
+    def near_best_cases() -> Iterator[list[Case]]:
         for seed in range(1, market + 1):
-            yield from market_share_cases(seed, per_market, near_best=True)
+            yield list(market_share_cases(seed, per_market, near_best=True))
 
     generators = {
         "tea-shop": tea_cases,

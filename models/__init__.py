@@ -18,7 +18,9 @@ detail. The surface, by task:
 * learning: :func:`plan_price_test` (a price test and what it should teach and cost),
   :func:`expected_outcomes` and :func:`drift_check` (watching outcomes after a fit);
 * pricing: :func:`optimal_price`, :func:`optimal_family_prices`,
-  :class:`PriceConstraints`, :class:`DemandCurve` and the recommendation records;
+  :class:`PriceConstraints`, :class:`DemandCurve` and the recommendation records; moves
+  calibrated by the catalogue: :func:`move_evidence` (:class:`MoveEvidence`),
+  :func:`catalogue_spread`, :func:`calibrated_limit`;
 * errors: every exception of the library (:mod:`models.errors`);
 * the invented tea shop with known true demand: :func:`generate_catalogue`,
   :func:`simulate_product`, :data:`COVARIATES`, :data:`LOG_COVARIATES`.
@@ -71,6 +73,14 @@ from models.pricing import (
     optimal_family_prices,
     optimal_price,
 )
+from models.pricing.calibrate import (
+    CALIBRATION,
+    MoveEvidence,
+    calibrated_limit,
+    calibrated_share,
+    catalogue_spread,
+    move_evidence,
+)
 from models.result import (
     Coefficient,
     DataWindow,
@@ -94,6 +104,7 @@ from models.shrinkage import Shrinkage, ShrunkElasticity, shrink_own_price, shru
 from models.spec import UNIT_COST, ModelSpec
 
 __all__ = [
+    "CALIBRATION",
     "COVARIATES",
     "Catalogue",
     "Coefficient",
@@ -117,6 +128,7 @@ __all__ = [
     "LOG_COVARIATES",
     "MissingUnitCostError",
     "ModelSpec",
+    "MoveEvidence",
     "NamedLimit",
     "NormalMeans",
     "PooledElasticity",
@@ -142,6 +154,9 @@ __all__ = [
     "VIF_LIMIT",
     "WEAK_INSTRUMENT_F",
     "WrongSignError",
+    "calibrated_limit",
+    "calibrated_share",
+    "catalogue_spread",
     "drift_check",
     "elasticities",
     "expected_outcomes",
@@ -151,6 +166,7 @@ __all__ = [
     "fitted_units",
     "generate_catalogue",
     "holdout_units",
+    "move_evidence",
     "normal_means",
     "optimal_family_prices",
     "optimal_price",

@@ -23,7 +23,8 @@ def test_quick_study_scores_every_generator_and_choice(capsys: pytest.CaptureFix
     report = capsys.readouterr().out
     for generator in GENERATORS:
         assert f"\n{generator}: " in report
-    names = [decisions.KEEP, *[r[0] for r in decisions.RULES], *decisions.CEILINGS]
+    names = [decisions.KEEP, *[r[0] for r in decisions.RULES], decisions.CALIBRATED]
+    names += list(decisions.CEILINGS)
     for name in names:
         rows = re.findall(
             rf"^{re.escape(name)} +([\d.]+) +([\d.]+) +(\d+)% +([\d.]+)$", report, re.M

@@ -1,0 +1,163 @@
+"""Moves calibrated by the catalogue: how far a price moves toward its fitted optimum.
+
+A fitted optimum proposes a move from the current price, ``d = ln(optimum / current)``. Part
+of that move is real (the current price is off its best) and part is the estimate's noise;
+across a catalogue the two can be told apart, as in a random-effects model (the method of
+moments of DerSimonian and Laird, *Meta-analysis in clinical trials*, Controlled Clinical
+Trials 7, 1986): with ``s_i`` the spread of each product's optimal log price over its
+estimate's distribution, the spread of the true moves is
+
+    tau^2 = max(0, mean(c_i^2) - mean(s_i^2)),
+
+and each product moves the share ``f_i = tau^2 / (tau^2 + s_i^2)`` of its point move, the
+normal posterior mean of its true move under a ``N(0, tau^2)`` prior (shrinkage of a normal
+mean toward zero). A shop whose current prices sit near their best has ``tau^2`` near zero
+and moves little; one whose prices are far off moves nearly all the way.
+
+The catalogue's ``tau^2`` is read from the *cautious* moves ``c_i`` (the 10th-percentile
+choice of :mod:`models.pricing.decide`), not from the point moves: where the true curve has a
+shape no offered form matches, the point optima are confidently wrong away from the data and
+their moves overstate how far prices are off, while the cautious choice stays near the data.
+The calibrated move itself follows the point optimum, scaled by ``f_i``. Checked by the
+decision study (``bench/decisions.py``); see docs/estimation.md.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Final
+
+import numpy as np
+
+from models._typing import FloatArray
+from models.errors import PricingInputError, WrongSignError
+from models.pricing.constraints import NamedLimit, PriceConstraints
+from models.pricing.curve import scenario_values
+from models.pricing.decide import predictor_law
+from models.pricing.single import optimal_price
+from models.result import DemandFit
+
+CALIBRATION: Final = "catalogue_calibration"
+"""The name of the limit a calibrated move puts on a price (in ``binding_constraints``)."""
+MIN_PRODUCTS: Final = 3
+"""Fewer priced products than this give no catalogue spread (the decision falls back)."""
+SPREAD_DRAWS: Final = 400
+SPREAD_GRID: Final = 1000
+
+
+@dataclass(frozen=True)
+class MoveEvidence:
+    """What one product says about moving its price.
+
+    Attributes
+    ----------
+    sku : str
+    point_move, cautious_move : float
+        ``ln(price / current price)`` of the point and the cautious choices.
+    spread : float
+        Spread of the optimal log price over the estimate's distribution (half the
+        distance between its 16th and 84th percentiles: one standard deviation of a normal).
+    """
+
+    sku: str
+    point_move: float
+    cautious_move: float
+    spread: float
+
+
+def optimum_spread(
+    fit: DemandFit,
+    *,
+    unit_cost: float,
+    low: float,
+    high: float,
+    scenario: dict[str, float] | None = None,
+    seed: int = 0,
+) -> float | None:
+    """The spread of the profit-maximising log price within ``[low, high]`` over draws of
+    the offset and own-price coefficient (:class:`~models.pricing.decide.PredictorLaw`); None
+    when the covariance is unusable or the range is empty."""
+    law = predictor_law(fit, scenario_values(fit, scenario))
+    if law is None or not (0.0 < low < high < math.inf):
+        return None
+    try:
+        root = np.linalg.cholesky(law.cov)
+    except np.linalg.LinAlgError:
+        return None
+    grid = np.geomspace(low, high, SPREAD_GRID)
+    draws = np.random.default_rng(seed).standard_normal((SPREAD_DRAWS, 2)) @ root.T + law.mean
+    eta = draws[:, :1] + draws[:, 1:] * law.g(grid)[None, :]
+    with np.errstate(over="ignore"):
+        units: FloatArray = np.maximum(eta, 0.0) if law.linear else np.exp(eta)
+    best = np.log(grid[np.argmax((grid - unit_cost)[None, :] * units, axis=1)])
+    low_q, high_q = np.quantile(best, [0.16, 0.84])
+    return float(high_q - low_q) / 2.0
+
+
+def move_evidence(
+    fit: DemandFit,
+    *,
+    unit_cost: float,
+    current_price: float,
+    constraints: PriceConstraints | None = None,
+    scenario: dict[str, float] | None = None,
+) -> MoveEvidence | None:
+    """One product's point and cautious moves and its optimum's spread (profit, no
+    do-no-harm check); None where it cannot be priced (a wrong sign, no feasible price, no
+    finite optimum, no upper limit) or its covariance is unusable."""
+    try:
+        point, cautious = (
+            optimal_price(
+                fit,
+                unit_cost=unit_cost,
+                current_price=current_price,
+                constraints=constraints,
+                scenario=scenario,
+                decide_by=rule,
+            )
+            for rule in ("point", "cautious")
+        )
+    except (PricingInputError, WrongSignError):
+        return None
+    low, high = point.feasible_range
+    spread = (
+        None
+        if high is None
+        else optimum_spread(fit, unit_cost=unit_cost, low=low, high=high, scenario=scenario)
+    )
+    if spread is None:
+        return None
+    return MoveEvidence(
+        sku=fit.sku,
+        point_move=math.log(point.recommended.price / current_price),
+        cautious_move=math.log(cautious.recommended.price / current_price),
+        spread=spread,
+    )
+
+
+def catalogue_spread(evidence: Sequence[MoveEvidence]) -> float | None:
+    """``tau^2``: the spread of the true moves across the catalogue (method of moments on
+    the cautious moves); None with fewer than :data:`MIN_PRODUCTS` products."""
+    usable = [e for e in evidence if math.isfinite(e.cautious_move) and math.isfinite(e.spread)]
+    if len(usable) < MIN_PRODUCTS:
+        return None
+    moves = np.array([e.cautious_move for e in usable])
+    spreads = np.array([e.spread for e in usable])
+    return max(0.0, float(np.mean(moves**2) - np.mean(spreads**2)))
+
+
+def calibrated_share(evidence: MoveEvidence, tau2: float) -> float:
+    """``f = tau^2 / (tau^2 + s^2)``: the share of its point move a product makes."""
+    total = tau2 + evidence.spread**2
+    return tau2 / total if total > 0.0 else 0.0
+
+
+def calibrated_limit(evidence: MoveEvidence, tau2: float, current_price: float) -> NamedLimit:
+    """The floor and ceiling that let the price move the calibrated share of its point move
+    (the move itself, both ways, so a price between stays possible)."""
+    reach = abs(calibrated_share(evidence, tau2) * evidence.point_move)
+    return NamedLimit(
+        CALIBRATION, low=current_price * math.exp(-reach), high=current_price * math.exp(reach)
+    )
