@@ -186,7 +186,8 @@ def calibrated_price(case: Case, evidence: MoveEvidence | None, tau2: float | No
     constraints, rule, check = case.constraints, "cautious", True
     if tau2 is not None:
         limit = calibrated_limit(evidence, tau2, case.current_price)
-        constraints = replace(constraints, named_limits=(*constraints.named_limits, limit))
+        if limit is not None:
+            constraints = replace(constraints, named_limits=(*constraints.named_limits, limit))
         rule, check = "point", False
     try:
         return optimal_price(

@@ -27,7 +27,7 @@ ROOT = Path(__file__).resolve().parents[1]
 PACKAGES = ("models", "service")
 MAX_LINES = 500
 SERVICE_TOP_LEVEL = {"__init__.py", "cli.py"}
-OPTIMISERS = ("optimal_price", "optimal_family_prices")
+OPTIMISERS = ("optimal_price", "optimal_family_prices", "move_evidence")
 PRICING_MODULE = "service.pricing.recommendations"
 
 

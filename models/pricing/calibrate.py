@@ -43,6 +43,8 @@ CALIBRATION: Final = "catalogue_calibration"
 """The name of the limit a calibrated move puts on a price (in ``binding_constraints``)."""
 MIN_PRODUCTS: Final = 3
 """Fewer priced products than this give no catalogue spread (the decision falls back)."""
+WHOLE_MOVE: Final = 1e-4
+"""A calibrated reach this close (in log price) to the point move is the whole move."""
 SPREAD_DRAWS: Final = 400
 SPREAD_GRID: Final = 1000
 
@@ -88,10 +90,16 @@ def optimum_spread(
         return None
     grid = np.geomspace(low, high, SPREAD_GRID)
     draws = np.random.default_rng(seed).standard_normal((SPREAD_DRAWS, 2)) @ root.T + law.mean
-    eta = draws[:, :1] + draws[:, 1:] * law.g(grid)[None, :]
-    with np.errstate(over="ignore"):
+    # Extreme prices or coefficients overflow to infinities: those points are left out.
+    with np.errstate(over="ignore", invalid="ignore"):
+        eta = draws[:, :1] + draws[:, 1:] * law.g(grid)[None, :]
         units: FloatArray = np.maximum(eta, 0.0) if law.linear else np.exp(eta)
-    best = np.log(grid[np.argmax((grid - unit_cost)[None, :] * units, axis=1)])
+        profit = (grid - unit_cost)[None, :] * units
+    profit[~np.isfinite(profit)] = -np.inf
+    usable = np.isfinite(profit).any(axis=1)
+    if not usable.any():
+        return None
+    best = np.log(grid[np.argmax(profit[usable], axis=1)])
     low_q, high_q = np.quantile(best, [0.16, 0.84])
     return float(high_q - low_q) / 2.0
 
@@ -154,10 +162,16 @@ def calibrated_share(evidence: MoveEvidence, tau2: float) -> float:
     return tau2 / total if total > 0.0 else 0.0
 
 
-def calibrated_limit(evidence: MoveEvidence, tau2: float, current_price: float) -> NamedLimit:
+def calibrated_limit(
+    evidence: MoveEvidence, tau2: float, current_price: float
+) -> NamedLimit | None:
     """The floor and ceiling that let the price move the calibrated share of its point move
-    (the move itself, both ways, so a price between stays possible)."""
+    (the move itself, both ways, so a price between stays possible); None when the share
+    covers the whole move (within :data:`WHOLE_MOVE` in log terms): the point optimum stands
+    and no limit of its own should be named beside the constraints that hold it."""
     reach = abs(calibrated_share(evidence, tau2) * evidence.point_move)
+    if abs(evidence.point_move) - reach <= WHOLE_MOVE:
+        return None
     return NamedLimit(
         CALIBRATION, low=current_price * math.exp(-reach), high=current_price * math.exp(reach)
     )

@@ -6,19 +6,25 @@ from typing import Literal
 
 from pydantic import BaseModel, Field, StrictBool
 
-DecideBy = Literal["point", "expected", "cautious"]
-DEFAULT_DECIDE_BY: DecideBy = "cautious"
+DecideBy = Literal["point", "expected", "cautious", "calibrated"]
+DEFAULT_DECIDE_BY: DecideBy = "calibrated"
+CALIBRATED = "calibrated"
 DEFAULT_NO_HARM_CHECK = True
+"""The do-no-harm check's default for point, expected and cautious (calibrated: off)."""
 DECIDE_BY_HELP = (
     "How the price is chosen from the estimate, which is uncertain: `point` takes the fitted "
     "coefficients as exact; `expected` maximises the average profit (or revenue) over the "
     "estimate's distribution; `cautious` maximises the profit reached in nine of ten "
     "outcomes of that distribution (its 10th percentile), which keeps prices nearer those "
-    "the data have seen. The default was chosen by the decision study in the README"
+    "the data have seen; `calibrated` moves each price the share of its point move that the "
+    "catalogue's spread of moves supports beyond the estimates' noise (the same as "
+    "`cautious` where fewer than three products can be priced). The default was chosen by "
+    "the decision study in the README"
 )
 NO_HARM_HELP = (
     "Keep the current price unless the chosen one earns more on average and in at least 80% "
-    "of the estimate's distribution (needs a current price the constraints allow)"
+    "of the estimate's distribution (needs a current price the constraints allow). Default: "
+    "on, except with `decide_by: calibrated`, whose reach already does that work"
 )
 
 
@@ -26,7 +32,7 @@ class DecisionFields(BaseModel):
     """How to choose the price, shared by single-product requests and reprice jobs."""
 
     decide_by: DecideBy = Field(default=DEFAULT_DECIDE_BY, description=DECIDE_BY_HELP)
-    no_harm_check: StrictBool = Field(default=DEFAULT_NO_HARM_CHECK, description=NO_HARM_HELP)
+    no_harm_check: StrictBool | None = Field(default=None, description=NO_HARM_HELP)
 
 
 class DecisionFiguresOut(BaseModel):

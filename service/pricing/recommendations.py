@@ -19,8 +19,11 @@ from sqlalchemy.orm import Session
 
 from models import (
     DemandFit,
+    MoveEvidence,
     PriceConstraints,
     PriceRecommendation,
+    calibrated_limit,
+    move_evidence,
     optimal_family_prices,
     optimal_price,
 )
@@ -33,7 +36,8 @@ from service.core.errors import (
 )
 from service.core.tables import PriceEntryRow, ProductRow, RecommendationRow, as_utc, utcnow
 from service.estimation.fits import active_fit, product_with_active_fit
-from service.pricing import price_record, review, rule_limits
+from service.pricing import calibration, price_record, review, rule_limits
+from service.pricing.decision_schemas import CALIBRATED, DEFAULT_NO_HARM_CHECK
 from service.pricing.money import money_text, round_recommendation
 from service.pricing.rule_limits import RuleLimits
 from service.pricing.schemas import ConstraintsIn, FamilyPriceRequest, OptimalPriceRequest
@@ -110,34 +114,99 @@ def price_product(
     *,
     scenario: dict[str, float] | None = None,
     rules: RuleLimits | None = None,
+    move_spread: float | None = None,
 ) -> PriceRecommendation:
     """One product's optimal price under the request's rules, the product's own terms
     filling what the request leaves out (the one place a single price is worked out);
     prices in the currency's minor unit (:func:`~service.pricing.money.round_recommendation`).
     ``rules``: the limits of the jurisdiction rules in effect, as named limits.
+    ``move_spread``: the catalogue's spread of moves for ``decide_by: calibrated``
+    (:func:`move_spread_for`).
 
     Raises domain errors: :class:`~service.core.errors.WrongSign` when the fit says
     demand rises with price (unless ``allow_wrong_sign``),
     :class:`~service.core.errors.InvalidInput` for rules no price meets or numbers the
     arithmetic cannot handle.
     """
+    unit_cost = request.unit_cost if request.unit_cost is not None else product.unit_cost
+    current = current_price(product, fit, request.current_price)
+    constraints = with_rules(price_constraints(product, request.constraints), rules)
+    values = request.scenario if scenario is None else scenario
+    decide_by: str = request.decide_by
+    check = request.no_harm_check
     with library_errors(subject="no price can be recommended from this fit", spec_field="body"):
+        if decide_by == CALIBRATED:
+            decide_by, check, constraints = _calibrated(
+                fit,
+                unit_cost=unit_cost if request.objective == "profit" else None,
+                current=current,
+                constraints=constraints,
+                scenario=values,
+                move_spread=move_spread,
+                check=check,
+            )
         found = optimal_price(
             fit,
             objective=request.objective,
-            unit_cost=request.unit_cost if request.unit_cost is not None else product.unit_cost,
-            current_price=current_price(product, fit, request.current_price),
-            constraints=with_rules(price_constraints(product, request.constraints), rules),
-            scenario=request.scenario if scenario is None else scenario,
+            unit_cost=unit_cost,
+            current_price=current,
+            constraints=constraints,
+            scenario=values,
             uncertainty_draws=request.uncertainty_draws,
             seed=request.seed,
             curve_points=request.curve_points,
             allow_wrong_sign=request.allow_wrong_sign,
             money=money_text(product.currency),
-            decide_by=request.decide_by,
-            no_harm_check=request.no_harm_check,
+            decide_by=decide_by,
+            no_harm_check=DEFAULT_NO_HARM_CHECK if check is None else check,
         )
+    if request.decide_by == CALIBRATED and found.decision_figures is not None:
+        figures = replace(found.decision_figures, decide_by=CALIBRATED)
+        found = replace(found, decision_figures=figures)
     return round_recommendation(found, product.currency)
+
+
+def _calibrated(
+    fit: DemandFit,
+    *,
+    unit_cost: float | None,
+    current: float | None,
+    constraints: PriceConstraints,
+    scenario: dict[str, Any],
+    move_spread: float | None,
+    check: bool | None,
+) -> tuple[str, bool | None, PriceConstraints]:
+    """``calibrated``: the point optimum within the reach the catalogue's spread allows; the
+    cautious choice (with the do-no-harm check unless turned off) where there is no spread
+    (fewer than three products priced), no current price or unit cost, or no evidence."""
+    evidence: MoveEvidence | None = None
+    if move_spread is not None and unit_cost is not None and current is not None:
+        evidence = move_evidence(
+            fit,
+            unit_cost=unit_cost,
+            current_price=current,
+            constraints=constraints,
+            scenario=scenario,
+        )
+    if move_spread is None or evidence is None or current is None:
+        return "cautious", check, constraints
+    limit = calibrated_limit(evidence, move_spread, current)
+    if limit is not None:
+        constraints = replace(constraints, named_limits=(*constraints.named_limits, limit))
+    return "point", bool(check), constraints
+
+
+def _evidence_of(
+    fit: DemandFit, unit_cost: float, current: float, constraints: PriceConstraints
+) -> MoveEvidence | None:
+    return move_evidence(fit, unit_cost=unit_cost, current_price=current, constraints=constraints)
+
+
+def move_spread_for(session: Session, decide_by: str) -> float | None:
+    """The catalogue's spread of moves when ``decide_by`` is ``calibrated`` (else None)."""
+    if decide_by != CALIBRATED:
+        return None
+    return calibration.catalogue_move_spread(session, _evidence_of)
 
 
 @dataclass(frozen=True)
@@ -162,7 +231,8 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
         unit_cost=body.unit_cost,
         current_price=current_price(product, fit, body.current_price),
     )
-    result = price_product(fit, product, body, rules=rules)
+    spread = move_spread_for(session, body.decide_by)
+    result = price_product(fit, product, body, rules=rules, move_spread=spread)
     return Priced(
         product_id=product.id,
         sku=product.sku,

@@ -18,6 +18,7 @@ from service.jobs import queue as jobs
 from service.pricing import rule_limits, rules
 from service.pricing.recommendations import (
     current_price,
+    move_spread_for,
     price_product,
     store_records,
     with_prior_price,
@@ -102,6 +103,7 @@ def price_batch(
     records: list[dict[str, Any]] = []
     now = utcnow()
     in_effect = rules.listed(session, in_effect_at=now)  # read once for the batch
+    spread = move_spread_for(session, request.decide_by)  # kept per catalogue state
     for product, fit_id, created_at in batch:
         if fit_id is None:
             progress.counts["no_active_fit"] += 1
@@ -120,7 +122,9 @@ def price_batch(
                 current_price=current_price(product, fit, request.current_price),
                 known=in_effect,
             )
-            found = price_product(fit, product, request, scenario=scenario, rules=limits)
+            found = price_product(
+                fit, product, request, scenario=scenario, rules=limits, move_spread=spread
+            )
             record = with_prior_price(
                 session, product.id, rule_limits.split_binding(found.to_dict(), limits)
             )

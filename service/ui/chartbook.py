@@ -10,6 +10,8 @@ from typing import TYPE_CHECKING
 
 from sqlalchemy.orm import Session
 
+from service.pricing.decision_schemas import DEFAULT_DECIDE_BY
+from service.pricing.recommendations import move_spread_for
 from service.ui import chartdata, chartdata_demand, chartdata_fit_time, chartdata_money, records
 from service.ui.cache import ChartKey, SvgCache, chart_cache
 from service.ui.chartdata import KINDS
@@ -33,11 +35,15 @@ def chart_key(session: Session, product: ProductInfo, kind: str) -> ChartKey:
 
 def subject(session: Session, product: ProductInfo) -> chartdata.Subject:
     shown = records.shown_fit(session, product.id)
+    recommendation = records.latest_recommendation(session, product.id)
+    stored = recommendation.request if recommendation is not None else {}
+    decide_by = str(stored.get("decide_by") or DEFAULT_DECIDE_BY)
     return chartdata.Subject(
         product=product,
         fit=shown,
-        recommendation=records.latest_recommendation(session, product.id),
+        recommendation=recommendation,
         history=chartdata.load_history(session, product, shown),
+        move_spread=move_spread_for(session, decide_by),
     )
 
 

@@ -39,6 +39,8 @@ class Subject:
     fit: ShownFit | None
     recommendation: Recommendation | None
     history: History | None
+    # The catalogue's spread of moves, when the money chart prices with ``calibrated``.
+    move_spread: float | None = None
 
 
 def load_history(session: Session, product: ProductInfo, fit: ShownFit | None) -> History | None:

@@ -168,7 +168,7 @@ def money_inputs(subject: Subject) -> MoneyInputs:
     rules = _stored_rules(product, fit, recommendation)
     request, stand_in = _near_current_price(product, fit, rules.request)
     try:
-        result = price_product(fit, product, request)
+        result = price_product(fit, product, request, move_spread=subject.move_spread)
     except WrongSign as exc:
         return _empty_money(product, label, f"No price is recommended: {exc.reason}")
     except InvalidInput as exc:

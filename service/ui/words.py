@@ -109,6 +109,10 @@ _CONSTRAINTS = {
         "the do-no-harm check (moving did not win clearly enough)",
         "do-no-harm check",
     ),
+    "catalogue_calibration": (
+        "the catalogue calibration (the catalogue supports only part of the move)",
+        "catalogue calibration",
+    ),
 }
 
 

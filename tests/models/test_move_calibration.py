@@ -66,7 +66,10 @@ def test_the_catalogue_spread_by_hand() -> None:
     # Moves no larger than their noise: no spread left, every product keeps its price.
     quiet = [MoveEvidence(e.sku, e.point_move, 0.01, e.spread) for e in evidence]
     assert catalogue_spread(quiet) == 0.0
-    assert calibrated_limit(quiet[0], 0.0, 10.0).high == pytest.approx(10.0)
+    kept = calibrated_limit(quiet[0], 0.0, 10.0)
+    assert kept is not None and kept.low == kept.high == pytest.approx(10.0)
+    # A spread far beyond the noise: the whole point move, and no limit of its own.
+    assert calibrated_limit(evidence[0], 1e9, 10.0) is None
     assert catalogue_spread(evidence[:2]) is None  # too few products to tell
 
 
@@ -104,5 +107,5 @@ def test_move_evidence_reads_the_point_and_cautious_choices() -> None:
     # The calibrated limit reaches the share of the point move, both ways round the price.
     limit = calibrated_limit(found, 0.01, 9.0)
     reach = calibrated_share(found, 0.01) * abs(found.point_move)
-    assert limit.name == CALIBRATION
+    assert limit is not None and limit.name == CALIBRATION
     assert (limit.low, limit.high) == pytest.approx((9.0 * math.exp(-reach), 9.0 * math.exp(reach)))

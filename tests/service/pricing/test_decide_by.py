@@ -64,13 +64,12 @@ def test_exact_demand_every_choice_finds_the_closed_form_price(
     assert figures["expected_gain"] == pytest.approx(400.0, rel=1e-6)
 
 
-def test_the_default_is_cautious_with_the_check(
-    client: TestClient, headers: dict[str, str]
-) -> None:
+def test_the_default_is_calibrated(client: TestClient, headers: dict[str, str]) -> None:
     _product(client, headers, "DECIDE-DEFAULT", [2000.0 - 100.0 * p for p in PRICES])
-    figures = _price(client, headers, "DECIDE-DEFAULT")["decision_figures"]
-    assert figures["decide_by"] == "cautious"
-    assert figures["cautious_level"] == 0.1
+    default = _price(client, headers, "DECIDE-DEFAULT")
+    assert default["decision_figures"]["decide_by"] == "calibrated"
+    named = _price(client, headers, "DECIDE-DEFAULT", decide_by="calibrated")
+    assert default["recommended"] == named["recommended"]
 
 
 def test_noisy_demand_answers_as_the_library_on_the_same_fit(
