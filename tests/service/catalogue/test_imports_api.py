@@ -66,6 +66,7 @@ def test_import_creates_products_and_is_idempotent(
             "unit_cost": None,
             "in_stock": None,
             "covariates": {"rival_price": 0.99},
+            "price_test_id": None,  # no stored price test covers the period
         }
     ]
     first_tin = client.get("/v1/products/TEA-001/observations", headers=headers).json()["items"]
