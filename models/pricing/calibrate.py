@@ -114,7 +114,20 @@ def move_evidence(
 ) -> MoveEvidence | None:
     """One product's point and cautious moves and its optimum's spread (profit, no
     do-no-harm check); None where it cannot be priced (a wrong sign, no feasible price, no
-    finite optimum, no upper limit) or its covariance is unusable."""
+    finite optimum, no upper limit) or its covariance is unusable.
+
+    Examples
+    --------
+    >>> import models
+    >>> product = models.generate_catalogue(7).product("TEA-030")
+    >>> spec = models.ModelSpec(covariates=models.COVARIATES, log_covariates=models.LOG_COVARIATES)
+    >>> fit = models.fit_demand(product.history, spec)
+    >>> bounds = models.PriceConstraints(min_price=product.min_price, max_price=product.max_price)
+    >>> cost, price = product.unit_cost, product.current_price
+    >>> found = move_evidence(fit, unit_cost=cost, current_price=price, constraints=bounds)
+    >>> found.sku, round(found.point_move, 3), round(found.cautious_move, 3), found.spread > 0.0
+    ('TEA-030', 0.063, -0.033, True)
+    """
     try:
         point, cautious = (
             optimal_price(
@@ -147,7 +160,14 @@ def move_evidence(
 
 def catalogue_spread(evidence: Sequence[MoveEvidence]) -> float | None:
     """``tau^2``: the spread of the true moves across the catalogue (method of moments on
-    the cautious moves); None with fewer than :data:`MIN_PRODUCTS` products."""
+    the cautious moves); None with fewer than :data:`MIN_PRODUCTS` products.
+
+    Examples
+    --------
+    >>> moves = [MoveEvidence(f"P{i}", 0.0, c, 0.05) for i, c in enumerate((0.1, -0.2, 0.3))]
+    >>> round(catalogue_spread(moves), 6)  # (0.01 + 0.04 + 0.09) / 3 - 0.05 ** 2
+    0.044167
+    """
     usable = [e for e in evidence if math.isfinite(e.cautious_move) and math.isfinite(e.spread)]
     if len(usable) < MIN_PRODUCTS:
         return None
@@ -157,7 +177,13 @@ def catalogue_spread(evidence: Sequence[MoveEvidence]) -> float | None:
 
 
 def calibrated_share(evidence: MoveEvidence, tau2: float) -> float:
-    """``f = tau^2 / (tau^2 + s^2)``: the share of its point move a product makes."""
+    """``f = tau^2 / (tau^2 + s^2)``: the share of its point move a product makes.
+
+    Examples
+    --------
+    >>> calibrated_share(MoveEvidence("P1", 0.2, 0.1, spread=0.1), tau2=0.03)
+    0.75
+    """
     total = tau2 + evidence.spread**2
     return tau2 / total if total > 0.0 else 0.0
 
@@ -168,7 +194,14 @@ def calibrated_limit(
     """The floor and ceiling that let the price move the calibrated share of its point move
     (the move itself, both ways, so a price between stays possible); None when the share
     covers the whole move (within :data:`WHOLE_MOVE` in log terms): the point optimum stands
-    and no limit of its own should be named beside the constraints that hold it."""
+    and no limit of its own should be named beside the constraints that hold it.
+
+    Examples
+    --------
+    >>> limit = calibrated_limit(MoveEvidence("P1", 0.2, 0.1, spread=0.1), 0.03, 10.0)
+    >>> limit.name, round(limit.low, 4), round(limit.high, 4)  # 10 * exp(-+0.75 * 0.2)
+    ('catalogue_calibration', 8.6071, 11.6183)
+    """
     reach = abs(calibrated_share(evidence, tau2) * evidence.point_move)
     if abs(evidence.point_move) - reach <= WHOLE_MOVE:
         return None
