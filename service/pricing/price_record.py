@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import datetime as dt
 from dataclasses import dataclass
+from typing import Any
 
 from sqlalchemy import func, insert, select
 from sqlalchemy.exc import IntegrityError
@@ -180,3 +181,14 @@ def add_entry(
         ) from None
     row = session.get_one(PriceEntryRow, new_id)
     return _entry(row, None)
+
+
+def with_prior_price(session: Session, product_id: int, result: dict[str, Any]) -> dict[str, Any]:
+    """A result that lowers the price carries the prior price: the lowest price live in
+    the 30 days before now in the product's price record (see
+    :func:`prior_lowest_price`)."""
+    current = (result.get("current") or {}).get("price")
+    recommended = (result.get("recommended") or {}).get("price")
+    lowers = current is not None and recommended is not None and recommended < current
+    prior = prior_lowest_price(session, product_id, utcnow()) if lowers else None
+    return {**result, "prior_price": prior}

@@ -239,21 +239,10 @@ def recommend(session: Session, *, sku: str, body: OptimalPriceRequest) -> Price
         fit_id=fit_id,
         objective=body.objective,
         request=body.model_dump(exclude={"store"}),
-        result=with_prior_price(
+        result=price_record.with_prior_price(
             session, product.id, rule_limits.split_binding(result.to_dict(), rules)
         ),
     )
-
-
-def with_prior_price(session: Session, product_id: int, result: dict[str, Any]) -> dict[str, Any]:
-    """A result that lowers the price carries the prior price: the lowest price live in
-    the 30 days before now in the product's price record (see
-    :func:`~service.pricing.price_record.prior_lowest_price`)."""
-    current = (result.get("current") or {}).get("price")
-    recommended = (result.get("recommended") or {}).get("price")
-    lowers = current is not None and recommended is not None and recommended < current
-    prior = price_record.prior_lowest_price(session, product_id, utcnow()) if lowers else None
-    return {**result, "prior_price": prior}
 
 
 _RECOMMENDATIONS = cast(Table, RecommendationRow.__table__)
@@ -436,7 +425,7 @@ def recommend_family(
             fit_id=fit_ids[item["sku"]],
             objective=body.objective,
             request=request,
-            result=with_prior_price(
+            result=price_record.with_prior_price(
                 session,
                 by_sku[item["sku"]].id,
                 rule_limits.split_binding(item, rules[item["sku"]]),

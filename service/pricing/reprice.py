@@ -15,13 +15,12 @@ from service.core.tables import FitRow, JobRow, ProductRow, utcnow
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
 from service.jobs import queue as jobs
-from service.pricing import rule_limits, rules
+from service.pricing import price_record, rule_limits, rules
 from service.pricing.recommendations import (
     current_price,
     move_spread_for,
     price_product,
     store_records,
-    with_prior_price,
 )
 from service.pricing.schemas import OptimalPriceRequest
 
@@ -125,7 +124,7 @@ def price_batch(
             found = price_product(
                 fit, product, request, scenario=scenario, rules=limits, move_spread=spread
             )
-            record = with_prior_price(
+            record = price_record.with_prior_price(
                 session, product.id, rule_limits.split_binding(found.to_dict(), limits)
             )
         except WrongSign as exc:
