@@ -10,8 +10,6 @@ is kept per set and recomputed only when a fit is activated or a family changes.
 from __future__ import annotations
 
 import datetime as dt
-import threading
-from collections import OrderedDict
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Final
@@ -20,6 +18,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from models import DemandFit, ElasticityRow, Shrinkage, ShrunkElasticity, shrink_own_price
+from service.core.kept import Kept
 from service.core.tables import FitRow, ProductRow, as_utc
 from service.estimation import answers
 from service.estimation.fits import active_fit
@@ -50,33 +49,8 @@ class ShrunkFit:
 Key = tuple[tuple[int, str, str | None], ...]
 
 
-class ShrinkageCache:
-    """Shrinkage results by the set of active fits (id, creation time, family) they came from."""
-
-    def __init__(self, size: int = _KEPT) -> None:
-        self.size = size
-        self._items: OrderedDict[Key, CatalogueShrinkage] = OrderedDict()
-        self._lock = threading.Lock()
-
-    def get(self, key: Key) -> CatalogueShrinkage | None:
-        with self._lock:
-            found = self._items.get(key)
-            if found is not None:
-                self._items.move_to_end(key)
-            return found
-
-    def put(self, key: Key, value: CatalogueShrinkage) -> None:
-        with self._lock:
-            self._items[key] = value
-            while len(self._items) > self.size:
-                self._items.popitem(last=False)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._items.clear()
-
-
-shrinkage_cache = ShrinkageCache()
+shrinkage_cache: Kept[Key, CatalogueShrinkage] = Kept(_KEPT)
+"""Shrinkage results by the set of active fits (id, creation time, family) they came from."""
 
 
 def _active_fits(session: Session) -> list[tuple[int, dt.datetime, str, str | None]]:

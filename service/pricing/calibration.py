@@ -13,8 +13,6 @@ from __future__ import annotations
 
 import datetime as dt
 import math
-import threading
-from collections import OrderedDict
 from collections.abc import Callable
 from typing import Final
 
@@ -23,6 +21,7 @@ from sqlalchemy.orm import Session
 
 from models import DemandFit, MoveEvidence, PriceConstraints, catalogue_spread
 from service.core.errors import LIBRARY_ERRORS, strict_floats
+from service.core.kept import Kept
 from service.core.tables import FitRow, ProductRow, as_utc
 from service.estimation.fit_cache import fit_cache
 from service.estimation.gates import ACTIVE
@@ -38,33 +37,8 @@ Key = tuple[tuple[Row, float], ...]
 EvidenceOf = Callable[[DemandFit, float, float, PriceConstraints], MoveEvidence | None]
 
 
-class SpreadCache:
-    """Catalogue spreads by the state of the products they came from."""
-
-    def __init__(self, size: int = _KEPT) -> None:
-        self.size = size
-        self._items: OrderedDict[Key, float | None] = OrderedDict()
-        self._lock = threading.Lock()
-
-    def get(self, key: Key) -> tuple[bool, float | None]:
-        with self._lock:
-            if key not in self._items:
-                return False, None
-            self._items.move_to_end(key)
-            return True, self._items[key]
-
-    def put(self, key: Key, value: float | None) -> None:
-        with self._lock:
-            self._items[key] = value
-            while len(self._items) > self.size:
-                self._items.popitem(last=False)
-
-    def clear(self) -> None:
-        with self._lock:
-            self._items.clear()
-
-
-spread_cache = SpreadCache()
+# The spread is wrapped in a 1-tuple: a catalogue with no spread (None) is a result too.
+spread_cache: Kept[Key, tuple[float | None]] = Kept(_KEPT)
 
 
 def _priced_products(session: Session) -> list[tuple[Row, dt.datetime]]:
@@ -106,9 +80,9 @@ def catalogue_move_spread(session: Session, evidence_of: EvidenceOf) -> float | 
     """
     rows = _priced_products(session)
     key: Key = tuple((row, as_utc(created).timestamp()) for row, created in rows)
-    found, cached = spread_cache.get(key)
-    if found:
-        return cached
+    cached = spread_cache.get(key)
+    if cached is not None:
+        return cached[0]
     evidence: list[MoveEvidence] = []
     for (_, fit_id, _, cost, current, low, high), created in _sample(rows):
         try:  # a record that cannot be read or priced leaves out one product
@@ -124,5 +98,5 @@ def catalogue_move_spread(session: Session, evidence_of: EvidenceOf) -> float | 
         if moves is not None:
             evidence.append(moves)
     spread = catalogue_spread(evidence)
-    spread_cache.put(key, spread)
+    spread_cache.put(key, (spread,))
     return spread
