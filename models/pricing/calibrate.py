@@ -27,6 +27,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import partial
 from typing import Final
 
 import numpy as np
@@ -35,7 +36,7 @@ from models._typing import FloatArray
 from models.errors import PricingInputError, WrongSignError
 from models.pricing.constraints import NamedLimit, PriceConstraints
 from models.pricing.curve import scenario_values
-from models.pricing.decide import predictor_law
+from models.pricing.decide import PredictorLaw, predictor_law
 from models.pricing.single import optimal_price
 from models.result import DemandFit
 
@@ -46,7 +47,6 @@ MIN_PRODUCTS: Final = 3
 WHOLE_MOVE: Final = 1e-4
 """A calibrated reach this close (in log price) to the point move is the whole move."""
 SPREAD_DRAWS: Final = 400
-SPREAD_GRID: Final = 1000
 
 
 @dataclass(frozen=True)
@@ -69,6 +69,29 @@ class MoveEvidence:
     spread: float
 
 
+def best_prices(
+    law: PredictorLaw, draws: FloatArray, unit_cost: float, low: float, high: float
+) -> FloatArray:
+    """Each draw's profit-maximising price within ``[low, high]``, in closed form.
+
+    Every curve of a law is single-peaked in profit, so the best price in the range is the
+    peak clipped to it: ``c b / (1 + b)`` for units ``exp(o) p^b`` (the markup rule; no peak
+    while ``b >= -1``), ``c - 1 / b`` for ``exp(o + b p)``, and ``c / 2 - o / (2 b)`` for the
+    line ``o + b p``; a draw whose profit keeps rising (no peak) takes ``high``.
+    """
+    o, b = draws[:, 0], draws[:, 1]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        if law.linear:
+            peak = np.where(b < 0.0, unit_cost / 2.0 - o / (2.0 * b), high)
+        elif law.log_price:
+            peak = np.where(b < -1.0, unit_cost * b / (1.0 + b), high)
+        else:
+            peak = np.where(b < 0.0, unit_cost - 1.0 / b, high)
+    peak = np.where(np.isfinite(peak), peak, high)
+    clipped: FloatArray = np.clip(peak, low, high)
+    return clipped
+
+
 def optimum_spread(
     fit: DemandFit,
     *,
@@ -79,8 +102,9 @@ def optimum_spread(
     seed: int = 0,
 ) -> float | None:
     """The spread of the profit-maximising log price within ``[low, high]`` over draws of
-    the offset and own-price coefficient (:class:`~models.pricing.decide.PredictorLaw`); None
-    when the covariance is unusable or the range is empty."""
+    the offset and own-price coefficient (:class:`~models.pricing.decide.PredictorLaw`, each
+    draw's best price by :func:`best_prices`); None when the covariance is unusable or the
+    range is empty."""
     law = predictor_law(fit, scenario_values(fit, scenario))
     if law is None or not (0.0 < low < high < math.inf):
         return None
@@ -88,18 +112,8 @@ def optimum_spread(
         root = np.linalg.cholesky(law.cov)
     except np.linalg.LinAlgError:
         return None
-    grid = np.geomspace(low, high, SPREAD_GRID)
     draws = np.random.default_rng(seed).standard_normal((SPREAD_DRAWS, 2)) @ root.T + law.mean
-    # Extreme prices or coefficients overflow to infinities: those points are left out.
-    with np.errstate(over="ignore", invalid="ignore"):
-        eta = draws[:, :1] + draws[:, 1:] * law.g(grid)[None, :]
-        units: FloatArray = np.maximum(eta, 0.0) if law.linear else np.exp(eta)
-        profit = (grid - unit_cost)[None, :] * units
-    profit[~np.isfinite(profit)] = -np.inf
-    usable = np.isfinite(profit).any(axis=1)
-    if not usable.any():
-        return None
-    best = np.log(grid[np.argmax(profit[usable], axis=1)])
+    best = np.log(best_prices(law, draws, unit_cost, low, high))
     low_q, high_q = np.quantile(best, [0.16, 0.84])
     return float(high_q - low_q) / 2.0
 
@@ -111,10 +125,13 @@ def move_evidence(
     current_price: float,
     constraints: PriceConstraints | None = None,
     scenario: dict[str, float] | None = None,
+    cautious: bool = True,
 ) -> MoveEvidence | None:
     """One product's point and cautious moves and its optimum's spread (profit, no
-    do-no-harm check); None where it cannot be priced (a wrong sign, no feasible price, no
-    finite optimum, no upper limit) or its covariance is unusable.
+    do-no-harm check; ``cautious=False`` leaves the cautious move out as nan, for pricing the
+    product itself, which needs only the point move); None where it cannot be priced (a
+    wrong sign, no feasible price, no finite optimum, no upper limit) or its covariance is
+    unusable.
 
     Examples
     --------
@@ -128,18 +145,17 @@ def move_evidence(
     >>> found.sku, round(found.point_move, 3), round(found.cautious_move, 3), found.spread > 0.0
     ('TEA-030', 0.063, -0.033, True)
     """
+    price_by = partial(
+        optimal_price,
+        fit,
+        unit_cost=unit_cost,
+        current_price=current_price,
+        constraints=constraints,
+        scenario=scenario,
+    )
     try:
-        point, cautious = (
-            optimal_price(
-                fit,
-                unit_cost=unit_cost,
-                current_price=current_price,
-                constraints=constraints,
-                scenario=scenario,
-                decide_by=rule,
-            )
-            for rule in ("point", "cautious")
-        )
+        point = price_by(decide_by="point")
+        careful = price_by(decide_by="cautious").recommended.price if cautious else math.nan
     except (PricingInputError, WrongSignError):
         return None
     low, high = point.feasible_range
@@ -153,7 +169,7 @@ def move_evidence(
     return MoveEvidence(
         sku=fit.sku,
         point_move=math.log(point.recommended.price / current_price),
-        cautious_move=math.log(cautious.recommended.price / current_price),
+        cautious_move=math.log(careful / current_price),
         spread=spread,
     )
 

@@ -187,6 +187,7 @@ def _calibrated(
             current_price=current,
             constraints=constraints,
             scenario=scenario,
+            cautious=False,  # the catalogue's spread has it; this product needs its point move
         )
     if move_spread is None or evidence is None or current is None:
         return "cautious", check, constraints

@@ -35,7 +35,8 @@ from models import (
     move_evidence,
     optimal_price,
 )
-from models.pricing.calibrate import optimum_spread
+from models.pricing.calibrate import best_prices, optimum_spread
+from models.pricing.decide import PredictorLaw
 
 
 @pytest.mark.parametrize(
@@ -89,8 +90,8 @@ def test_the_optimum_spread_matches_the_delta_method() -> None:
     delta = abs(1.0 / b - 1.0 / (1.0 + b)) * se
     found = optimum_spread(fit, unit_cost=cost, low=5.0, high=12.0)
     assert found is not None
-    # 400 draws (the 16th-84th percentile distance of 400 normal draws varies by about 6%)
-    # on a 1000-point geometric grid (steps of 0.09%): within 15%.
+    # 400 draws: the 16th-84th percentile distance of 400 normal draws varies by about 6%,
+    # and the delta method is a first-order approximation: within 15%.
     assert found == pytest.approx(delta, rel=0.15)
 
 
@@ -109,3 +110,26 @@ def test_move_evidence_reads_the_point_and_cautious_choices() -> None:
     reach = calibrated_share(found, 0.01) * abs(found.point_move)
     assert limit is not None and limit.name == CALIBRATION
     assert (limit.low, limit.high) == pytest.approx((9.0 * math.exp(-reach), 9.0 * math.exp(reach)))
+
+
+@pytest.mark.parametrize(
+    ("log_price", "linear", "offset", "coefs"),
+    [
+        (True, False, 9.0, [-3.0, -1.6, -0.8, 0.4]),  # units exp(o) p^b: no peak from b = -1
+        (False, False, 5.0, [-0.5, -0.2, -0.05, 0.1]),  # units exp(o + b p)
+        (False, True, 400.0, [-30.0, -12.0, -4.0, 2.0]),  # units o + b p, floored at zero
+    ],
+)
+def test_best_prices_are_the_profit_peaks_clipped_to_the_range(
+    log_price: bool, linear: bool, offset: float, coefs: list[float]
+) -> None:
+    # Independent reading: each draw's profit on a fine grid (steps of 0.001 in log price).
+    law = PredictorLaw(np.zeros(2), np.eye(2), log_price=log_price, linear=linear)
+    draws = np.array([[offset, b] for b in coefs])
+    low, high, cost = 4.0, 30.0, 3.0
+    grid = np.exp(np.arange(math.log(low), math.log(high), 0.001))
+    eta = draws[:, :1] + draws[:, 1:] * law.g(grid)[None, :]
+    units = np.maximum(eta, 0.0) if linear else np.exp(eta)
+    brute = grid[np.argmax((grid - cost)[None, :] * units, axis=1)]
+    found = best_prices(law, draws, cost, low, high)
+    assert found == pytest.approx(brute, rel=2e-3)
