@@ -19,7 +19,12 @@ Rules compared, all measured in the same run:
   catalogue (``shrunk``, :func:`models.shrink_own_price` over each seed's accepted fits);
 * ``calibrated``: each product moves the share of its point move that the catalogue's
   spread of moves supports (:mod:`models.pricing.calibrate`, over each seed's catalogue;
-  ``cautious`` with the check where fewer than three products can be priced).
+  ``cautious`` with the check where fewer than three products can be priced);
+* three other readings of the same catalogue, measured beside it and not offered by the
+  service: the spread read from the point moves instead of the cautious ones
+  (``calib. point moves``), and moves shrunk toward the catalogue's mean move instead of
+  toward no move, with mean and spread read from the point moves (``calib. mean, point``)
+  or the cautious ones (``calib. mean, cautious``).
 
 Two ceilings, which no rule can be expected to reach:
 
@@ -42,7 +47,7 @@ import math
 import sys
 import time
 from collections.abc import Callable, Iterator
-from dataclasses import replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -65,7 +70,7 @@ from models.pricing.calibrate import (  # noqa: E402
     catalogue_spread,
     move_evidence,
 )
-from models.pricing.constraints import price_limits  # noqa: E402
+from models.pricing.constraints import NamedLimit, price_limits  # noqa: E402
 from models.pricing.curve import scenario_values  # noqa: E402
 from models.pricing.decide import PredictorLaw, predictor_law  # noqa: E402
 
@@ -83,6 +88,7 @@ RULES: tuple[tuple[str, str, bool, bool], ...] = (
     ("shrunk caut. + check", "cautious", True, True),
 )
 CALIBRATED = "calibrated"
+VARIANTS = ("calib. point moves", "calib. mean, point", "calib. mean, cautious")
 CEILINGS = ("knows elasticity", "knows prior")
 KEEP = "keep current"
 PRIOR_POINTS = 201
@@ -202,11 +208,60 @@ def calibrated_price(case: Case, evidence: MoveEvidence | None, tau2: float | No
         return case.current_price
 
 
+@dataclass(frozen=True)
+class Reading:
+    """One reading of a catalogue's moves: the prior ``N(mean, tau2)`` of the true moves."""
+
+    mean: float
+    tau2: float
+
+
+def catalogue_readings(evidence: list[MoveEvidence]) -> dict[str, Reading]:
+    """The other readings of a catalogue (``VARIANTS``), by the method of moments as in
+    :func:`models.pricing.calibrate.catalogue_spread`; empty below three products."""
+    if len(evidence) < 3:
+        return {}
+    point = np.array([e.point_move for e in evidence])
+    careful = np.array([e.cautious_move for e in evidence])
+    noise = float(np.mean(np.array([e.spread for e in evidence]) ** 2))
+    return {
+        VARIANTS[0]: Reading(0.0, max(0.0, float(np.mean(point**2)) - noise)),
+        VARIANTS[1]: Reading(float(point.mean()), max(0.0, float(point.var()) - noise)),
+        VARIANTS[2]: Reading(float(careful.mean()), max(0.0, float(careful.var()) - noise)),
+    }
+
+
+def read_price(case: Case, evidence: MoveEvidence | None, reading: Reading | None) -> float:
+    """The point optimum within the move the reading's normal posterior gives,
+    ``mean + f (point move - mean)`` with ``f = tau2 / (tau2 + s^2)``, from the current price
+    (the current price where that move and the point move point different ways)."""
+    if case.fit is None or evidence is None or reading is None:
+        return case.current_price
+    total = reading.tau2 + evidence.spread**2
+    share = reading.tau2 / total if total > 0.0 else 0.0
+    target = reading.mean + share * (evidence.point_move - reading.mean)
+    low, high = sorted((0.0, target))
+    p0 = case.current_price
+    limit = NamedLimit("reading", low=p0 * math.exp(low), high=p0 * math.exp(high))
+    constraints = replace(case.constraints, named_limits=(*case.constraints.named_limits, limit))
+    try:
+        return optimal_price(
+            case.fit, unit_cost=case.unit_cost, current_price=p0, constraints=constraints
+        ).recommended.price
+    except (WrongSignError, PricingInputError):
+        return p0
+
+
 def price_case(
-    case: Case, evidence: MoveEvidence | None = None, tau2: float | None = None
+    case: Case,
+    evidence: MoveEvidence | None = None,
+    tau2: float | None = None,
+    readings: dict[str, Reading] | None = None,
 ) -> dict[str, float]:
     """Each rule's price for one case (the current price where it refuses)."""
     prices = {KEEP: case.current_price, CALIBRATED: calibrated_price(case, evidence, tau2)}
+    for name in VARIANTS:
+        prices[name] = read_price(case, evidence, (readings or {}).get(name))
     for name, rule, check, shrunk in RULES:
         prices[name] = case.current_price
         fit = case.shrunk if shrunk else case.fit
@@ -238,13 +293,16 @@ def price_case(
 
 
 def score_case(
-    case: Case, evidence: MoveEvidence | None = None, tau2: float | None = None
+    case: Case,
+    evidence: MoveEvidence | None = None,
+    tau2: float | None = None,
+    readings: dict[str, Reading] | None = None,
 ) -> dict[str, float]:
     """True profit at each rule's price, as a percentage of the best allowed true profit."""
     low, high = allowed_range(case)
     best_price = argmax_on(case.true_profit, low, high)
     best = float(case.true_profit(np.array([best_price]))[0])
-    prices = price_case(case, evidence, tau2)
+    prices = price_case(case, evidence, tau2, readings)
     return {
         name: 100.0 * float(case.true_profit(np.array([p]))[0]) / best for name, p in prices.items()
     }
@@ -252,7 +310,7 @@ def score_case(
 
 def summary(scores: list[dict[str, float]]) -> list[tuple[str, float, float, float, float]]:
     rows = []
-    for name in (KEEP, *[r[0] for r in RULES], CALIBRATED, *CEILINGS):
+    for name in (KEEP, *[r[0] for r in RULES], CALIBRATED, *VARIANTS, *CEILINGS):
         values = np.array([s[name] for s in scores])
         rows.append(
             (
@@ -282,9 +340,10 @@ def run(generators: dict[str, Callable[[], Iterator[list[Case]]]], total: int) -
         for name, catalogues in generators.items():
             for cases in catalogues():  # one catalogue (seed) at a time: calibrated needs it
                 evidence = [evidence_of(case) for case in cases]
-                tau2 = catalogue_spread([e for e in evidence if e is not None])
+                usable = [e for e in evidence if e is not None]
+                tau2, readings = catalogue_spread(usable), catalogue_readings(usable)
                 for case, found in zip(cases, evidence, strict=True):
-                    results[name].append(score_case(case, found, tau2))
+                    results[name].append(score_case(case, found, tau2, readings))
                     refused[name] += case.refused is not None
                     bar.update()
     for name, scores in results.items():

@@ -24,6 +24,7 @@ def test_quick_study_scores_every_generator_and_choice(capsys: pytest.CaptureFix
     for generator in GENERATORS:
         assert f"\n{generator}: " in report
     names = [decisions.KEEP, *[r[0] for r in decisions.RULES], decisions.CALIBRATED]
+    names += list(decisions.VARIANTS)
     names += list(decisions.CEILINGS)
     for name in names:
         rows = re.findall(
