@@ -18,7 +18,6 @@ from sqlalchemy.orm import Session, sessionmaker
 from models import DemandFit, FitFailure, History
 from service.catalogue.ingest import cyclic_gc_paused
 from service.core.db import session_scope
-from service.core.settings import Settings
 from service.estimation import fit_store
 from service.estimation.batch_reads import Task, lane, read_batch
 from service.estimation.refit import (
@@ -42,47 +41,25 @@ class _Clock:
 
 def refit_partition(task: partitions.PartitionTask) -> partitions.PartitionReport:
     """Run one partition of a refit job to its end; the scheduler calls this on a worker."""
-    settings = partitions.worker_settings(task.settings)
-    reads, writes = partitions.worker_factories(settings)
-    worker = jobs.worker_name()
-    with session_scope(writes) as session:
-        claimed = partitions.begin(session, job_id=task.job_id, number=task.number, worker=worker)
-    if claimed is None:
-        return partitions.PartitionReport(task.number, worker, 0)
+    run = partitions.PartitionRun.start(task)
+    if run.claimed is None:
+        return run.report(0)
     fresh = jobs.Progress()
-    with session_scope(reads) as session:
+    with session_scope(run.reads) as session:
         job = jobs.get_or_raise(session, job_id=task.job_id)
         candidates = select_candidates(
             session, job=job, progress=fresh, within=(task.first_id, task.last_id)
         )
-    progress = fresh if claimed.batches_done == 0 else claimed.progress
-    batches = make_batches(candidates, settings.job_batch_size)[claimed.batches_done :]
+    progress = run.progress(fresh)
+    batches = make_batches(candidates, run.settings.job_batch_size)[run.batches_done :]
     clock = _Clock()
-    _run_batches(
-        (reads, writes),
-        task=task,
-        batches=batches,
-        first=claimed.batches_done,
-        settings=settings,
-        progress=progress,
-        clock=clock,
-    )
-    with session_scope(writes) as session:
-        partitions.finish(
-            session,
-            job_id=task.job_id,
-            number=task.number,
-            status=jobs.SUCCEEDED,
-            progress=progress,
-        )
-    return partitions.PartitionReport(
-        task.number,
-        worker,
+    _run_batches(run, batches=batches, progress=progress, clock=clock)
+    run.succeed(progress)
+    return run.report(
         sum(len(b.members) for b in batches),
         read_seconds=clock.read,
         fit_seconds=clock.fit,
         write_seconds=clock.write,
-        peak_memory_bytes=partitions.peak_memory_bytes(),
     )
 
 
@@ -95,18 +72,15 @@ def _timed_read(reads: sessionmaker[Session], batch: Batch, clock: _Clock) -> li
 
 
 def _run_batches(
-    factories: tuple[sessionmaker[Session], sessionmaker[Session]],
+    run: partitions.PartitionRun,
     *,
-    task: partitions.PartitionTask,
     batches: Sequence[Batch],
-    first: int,
-    settings: Settings,
     progress: jobs.Progress,
     clock: _Clock,
 ) -> None:
     """Batches in order: the next read in a thread while this one fits, the last
     written in a thread while this one fits, as in the in-process job."""
-    reads, writes = factories
+    reads = run.reads
     fitted = [b for b in batches if b.spec is not None]
     with (
         lane(True, "marginal-partition-read") as reader,
@@ -120,7 +94,7 @@ def _run_batches(
 
         reading = deque([read_next()])
         writing: Task[None] | None = None
-        for number, batch in enumerate(batches, start=first):
+        for number, batch in enumerate(batches, start=run.batches_done):
             results: Sequence[DemandFit | FitFailure] = []
             texts: Sequence[str | None] = []
             if batch.spec is not None:
@@ -144,13 +118,11 @@ def _run_batches(
                 writing.result()
             writing = writer(
                 _write,
-                writes,
-                task=task,
+                run,
                 number=number,
                 batch=batch,
                 results=results,
                 texts=texts,
-                settings=settings,
                 progress=progress,
                 clock=clock,
             )
@@ -159,21 +131,19 @@ def _run_batches(
 
 
 def _write(
-    writes: sessionmaker[Session],
+    run: partitions.PartitionRun,
     *,
-    task: partitions.PartitionTask,
     number: int,
     batch: Batch,
     results: Sequence[DemandFit | FitFailure],
     texts: Sequence[str | None],
-    settings: Settings,
     progress: jobs.Progress,
     clock: _Clock,
 ) -> None:
     """A batch's fits and the partition's progress, in one transaction."""
     started = time.perf_counter()
     members: Sequence[Candidate] = batch.members
-    with cyclic_gc_paused(), session_scope(writes) as session:
+    with cyclic_gc_paused(), session_scope(run.writes) as session:
         if batch.spec is None:
             for member in members:
                 progress.add_error(member.sku, f"invalid spec: {batch.invalid}")
@@ -184,19 +154,13 @@ def _write(
                 targets=[fit_store.FitTarget(c.id, c.sku) for c in members],
                 results=results,
                 texts=texts,
-                settings=settings,
-                job_id=task.job_id,
+                settings=run.settings,
+                job_id=run.task.job_id,
             )
             for outcome in outcomes:
                 progress.counts[outcome.outcome] += 1
                 if outcome.reason:
                     progress.add_error(outcome.sku, outcome.reason)
         progress.done += len(members)
-        partitions.save(
-            session,
-            job_id=task.job_id,
-            number=task.number,
-            batches_done=number,
-            progress=progress,
-        )
+        run.save(session, number=number, progress=progress)
     clock.write += time.perf_counter() - started

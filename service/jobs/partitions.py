@@ -20,7 +20,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.core.db import make_engine, make_session_factory
+from service.core.db import make_engine, make_session_factory, session_scope
 from service.core.errors import ClusterUnavailable, Conflict
 from service.core.settings import Settings
 from service.core.tables import JobPartitionRow, JobRow, ProductRow, utcnow
@@ -70,6 +70,69 @@ class Claimed:
 
     batches_done: int
     progress: jobs.Progress = field(default_factory=jobs.Progress)
+
+
+@dataclass(frozen=True)
+class PartitionRun:
+    """One run of a partition on this worker, from its claim to its report: what the refit
+    and reprice runners share, so that each holds only its own batch work."""
+
+    task: PartitionTask
+    settings: Settings
+    reads: sessionmaker[Session]
+    writes: sessionmaker[Session]
+    worker: str
+    claimed: Claimed | None
+    """None: the partition had succeeded already and there is nothing to run."""
+
+    @classmethod
+    def start(cls, task: PartitionTask) -> PartitionRun:
+        """The worker's settings and sessions for ``task``, and the partition claimed."""
+        settings = worker_settings(task.settings)
+        reads, writes = worker_factories(settings)
+        worker = jobs.worker_name()
+        with session_scope(writes) as session:
+            claimed = begin(session, job_id=task.job_id, number=task.number, worker=worker)
+        return cls(task, settings, reads, writes, worker, claimed)
+
+    @property
+    def batches_done(self) -> int:
+        return 0 if self.claimed is None else self.claimed.batches_done
+
+    def progress(self, fresh: jobs.Progress) -> jobs.Progress:
+        """``fresh`` on a first run; on a run again, the progress its batches committed."""
+        return fresh if self.claimed is None or self.batches_done == 0 else self.claimed.progress
+
+    def save(self, session: Session, *, number: int, progress: jobs.Progress) -> None:
+        """Batch ``number`` committed, in the batch's transaction (see :func:`save`)."""
+        save(
+            session,
+            job_id=self.task.job_id,
+            number=self.task.number,
+            batches_done=number,
+            progress=progress,
+        )
+
+    def succeed(self, progress: jobs.Progress) -> None:
+        with session_scope(self.writes) as session:
+            finish(
+                session,
+                job_id=self.task.job_id,
+                number=self.task.number,
+                status=jobs.SUCCEEDED,
+                progress=progress,
+            )
+
+    def report(self, products: int, **seconds: float) -> PartitionReport:
+        """What the worker says back: ``seconds`` by ``read_seconds``, ``fit_seconds`` and
+        ``write_seconds``."""
+        return PartitionReport(
+            self.task.number,
+            self.worker,
+            products,
+            peak_memory_bytes=0 if self.claimed is None else peak_memory_bytes(),
+            **seconds,
+        )
 
 
 def task_settings(settings: Settings, *, local: bool) -> dict[str, Any]:

@@ -19,57 +19,31 @@ from service.pricing.recommendations import store_records
 
 def reprice_partition(task: partitions.PartitionTask) -> partitions.PartitionReport:
     """Run one partition of a reprice job to its end; the scheduler calls this on a worker."""
-    settings = partitions.worker_settings(task.settings)
-    reads, writes = partitions.worker_factories(settings)
-    worker = jobs.worker_name()
-    with session_scope(writes) as session:
-        claimed = partitions.begin(session, job_id=task.job_id, number=task.number, worker=worker)
-    if claimed is None:
-        return partitions.PartitionReport(task.number, worker, 0)
-    with session_scope(reads) as session:
+    run = partitions.PartitionRun.start(task)
+    if run.claimed is None:
+        return run.report(0)
+    with session_scope(run.reads) as session:
         job = jobs.get_or_raise(session, job_id=task.job_id)
         request = reprice.job_request(job)
         products = reprice.candidates(session, job=job, id_range=(task.first_id, task.last_id))
-    if claimed.batches_done == 0:
-        progress = jobs.Progress(total=len(products))
-        progress.counts.update(dict.fromkeys(jobs.REPRICE_COUNT_NAMES, 0))
-    else:
-        progress = claimed.progress
-    size = settings.job_batch_size
-    clock = {"read": 0.0, "fit": 0.0, "write": 0.0}
+    fresh = jobs.Progress(total=len(products))
+    fresh.counts.update(dict.fromkeys(jobs.REPRICE_COUNT_NAMES, 0))
+    progress = run.progress(fresh)
+    size = run.settings.job_batch_size
+    clock = {"fit": 0.0, "write": 0.0}
     done = 0
-    for number in range(claimed.batches_done, -(-len(products) // size)):
+    for number in range(run.batches_done, -(-len(products) // size)):
         batch = products[number * size : (number + 1) * size]
         started = time.perf_counter()
-        with session_scope(reads) as session:
+        with session_scope(run.reads) as session:
             records = reprice.price_batch(session, batch, request, task.job_id, progress)
         written = time.perf_counter()
-        with session_scope(writes) as session:
+        with session_scope(run.writes) as session:
             store_records(session, records, {p.id: p.sku for p, _, _ in batch})
             progress.done += len(batch)
-            partitions.save(
-                session,
-                job_id=task.job_id,
-                number=task.number,
-                batches_done=number,
-                progress=progress,
-            )
+            run.save(session, number=number, progress=progress)
         clock["fit"] += written - started
         clock["write"] += time.perf_counter() - written
         done += len(batch)
-    with session_scope(writes) as session:
-        partitions.finish(
-            session,
-            job_id=task.job_id,
-            number=task.number,
-            status=jobs.SUCCEEDED,
-            progress=progress,
-        )
-    return partitions.PartitionReport(
-        task.number,
-        worker,
-        done,
-        fit_seconds=clock["fit"],
-        write_seconds=clock["write"],
-        peak_memory_bytes=partitions.peak_memory_bytes(),
-    )
+    run.succeed(progress)
+    return run.report(done, fit_seconds=clock["fit"], write_seconds=clock["write"])
