@@ -231,4 +231,5 @@ def family_total(
         profit_interval=None if figures is None else figures.profit_interval,
         revenue_interval=None if figures is None else figures.revenue_interval,
         prob_better_than_current=None if figures is None else figures.prob_better,
+        value_of_knowing=None if figures is None else figures.value_of_knowing,
     )

@@ -30,6 +30,7 @@ class DrawFigures:
     profit_interval: tuple[float, float] | None
     revenue_interval: tuple[float, float] | None
     prob_better: float | None
+    value_of_knowing: float | None = None
 
 
 @dataclass(frozen=True)
@@ -143,4 +144,27 @@ def family_draws(
         profit_interval,
         interval(np.sum(recommended * units_rec, axis=1)),
         prob_better,
+        value_of_knowing(batch, costs, optimum, recommended),
     )
+
+
+def value_of_knowing(
+    batch: FamilyDemand, costs: FloatArray, optimum: FloatArray, recommended: FloatArray
+) -> float | None:
+    """The family objective a draw's own best prices would add over the recommended ones,
+    averaged over the draws whose problem was solved (None: none was).
+
+    Each draw's gain is floored at zero: a draw's re-solved prices are a local search from
+    the point solution, and where they fall short of the recommended prices the draw's
+    best is at least the recommended figure. The average is therefore never above the
+    value of knowing the coefficients exactly, and equal to it where every search finds its
+    draw's best (the definition of the expected value of perfect information; the single-
+    product figure in :mod:`models.pricing.decide` is the same quantity by quadrature).
+    """
+    solved = np.all(np.isfinite(optimum), axis=1)
+    if not solved.any():
+        return None
+    ones = np.flatnonzero(solved)
+    best = np.array([batch.draw(d).objective(optimum[d], costs) for d in ones])
+    chosen = np.array([batch.draw(d).objective(recommended, costs) for d in ones])
+    return float(np.mean(np.maximum(best - chosen, 0.0)))

@@ -240,7 +240,9 @@ class FamilyTotal:
     """Totals of a family recommendation.
 
     ``objective_change_pct`` compares the recommended with the current total objective;
-    the intervals and ``prob_better_than_current`` come from the coefficient draws.
+    the intervals, ``prob_better_than_current`` and ``value_of_knowing`` (the family
+    objective per period expected to be lost because the demand curves are not known
+    exactly) come from the coefficient draws.
     """
 
     current: TotalFigures | None
@@ -250,6 +252,7 @@ class FamilyTotal:
     profit_interval: tuple[float, float] | None
     revenue_interval: tuple[float, float] | None
     prob_better_than_current: float | None
+    value_of_knowing: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = clean(

@@ -254,6 +254,13 @@ class FamilyTotalOut(BaseModel):
     profit_interval: list[float | None] | None
     revenue_interval: list[float | None] | None
     prob_better_than_current: float | None
+    value_of_knowing: float | None = Field(
+        default=None,
+        description="Family profit (or revenue) per period expected to be lost because the "
+        "demand curves are not known exactly: the average over the coefficient draws of each "
+        "draw's best family figure less the figure at the recommended prices (a draw's gain "
+        "floored at zero). Needs `uncertainty_draws`; null without them",
+    )
 
 
 class ExcludedProduct(BaseModel):

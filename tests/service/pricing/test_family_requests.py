@@ -130,3 +130,20 @@ def test_pricing_switches_are_true_or_false_only(
         answer = client.post(path, json=body, headers=headers)
         assert answer.status_code == 422, (path, body, answer.text)
     assert row_count(db.settings, "recommendations") == 0
+
+
+def test_family_answer_carries_the_value_of_knowing_with_draws(
+    client: TestClient, headers: dict[str, str], db: Database
+) -> None:
+    # The family total reports what knowing the demand curves would be worth when the
+    # request asks for coefficient draws, and null without them (docs: "Recommended
+    # prices"); the figure is an expected loss, never negative (floored per draw).
+    _fitted(client, headers, "TEA-A")
+    _fitted(client, headers, "TEA-B", base=120.0)
+    plain = _family(client, headers, {})
+    assert plain.status_code == 200, plain.text
+    assert plain.json()["total"]["value_of_knowing"] is None
+    drawn = _family(client, headers, {"uncertainty_draws": 200})
+    assert drawn.status_code == 200, drawn.text
+    value = drawn.json()["total"]["value_of_knowing"]
+    assert value is not None and value >= 0.0
