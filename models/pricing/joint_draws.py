@@ -164,7 +164,7 @@ def value_of_knowing(
     solved = np.all(np.isfinite(optimum), axis=1)
     if not solved.any():
         return None
-    ones = np.flatnonzero(solved)
+    ones = [int(d) for d in np.flatnonzero(solved)]
     best = np.array([batch.draw(d).objective(optimum[d], costs) for d in ones])
     chosen = np.array([batch.draw(d).objective(recommended, costs) for d in ones])
     return float(np.mean(np.maximum(best - chosen, 0.0)))
