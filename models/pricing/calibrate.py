@@ -222,5 +222,8 @@ def calibrated_limit(
     if abs(evidence.point_move) - reach <= WHOLE_MOVE:
         return None
     return NamedLimit(
-        CALIBRATION, low=current_price * math.exp(-reach), high=current_price * math.exp(reach)
+        CALIBRATION,
+        low=current_price * math.exp(-reach),
+        high=current_price * math.exp(reach),
+        decision_only=True,
     )

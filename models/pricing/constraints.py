@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any, Final
 
 import numpy as np
@@ -39,11 +39,16 @@ class NamedLimit:
     --------
     >>> NamedLimit("rule:hold", low=4.5, high=4.5).high
     4.5
+
+    ``decision_only`` marks a limit a decision rule puts on its own move (the catalogue
+    calibration) rather than a rule on which prices may be charged: the price keeps to it,
+    but the value of knowing, the best each outcome could attain, looks past it.
     """
 
     name: str
     low: float | None = None
     high: float | None = None
+    decision_only: bool = False
 
 
 @dataclass(frozen=True)
@@ -157,9 +162,16 @@ class PriceConstraints:
         out = {f.name: getattr(self, f.name) for f in fields(self)}
         out["price_endings"] = list(self.price_endings)
         out["named_limits"] = [
-            {"name": n.name, "low": n.low, "high": n.high} for n in self.named_limits
+            {"name": n.name, "low": n.low, "high": n.high}
+            | ({"decision_only": True} if n.decision_only else {})
+            for n in self.named_limits
         ]
         return out
+
+    def without_decision_limits(self) -> PriceConstraints:
+        """The same rules without the limits marked ``decision_only``: the prices allowed."""
+        kept = tuple(n for n in self.named_limits if not n.decision_only)
+        return self if len(kept) == len(self.named_limits) else replace(self, named_limits=kept)
 
 
 def _named_limits(value: Any) -> tuple[NamedLimit, ...] | None:
@@ -168,12 +180,15 @@ def _named_limits(value: Any) -> tuple[NamedLimit, ...] | None:
         return None
     out = []
     for item in value:
-        if not isinstance(item, Mapping) or set(item) - {"name", "low", "high"}:
+        if not isinstance(item, Mapping) or set(item) - {"name", "low", "high", "decision_only"}:
             return None
         name, low, high = item.get("name"), item.get("low"), item.get("high")
         if not isinstance(name, str) or not all(v is None or _is_number(v) for v in (low, high)):
             return None
-        out.append(NamedLimit(name, low, high))
+        decision_only = item.get("decision_only", False)
+        if not isinstance(decision_only, bool):
+            return None
+        out.append(NamedLimit(name, low, high, decision_only))
     return tuple(out)
 
 

@@ -218,6 +218,9 @@ def decision_figures(
 ) -> PriceDecision:
     """The value of knowing and the comparison with the current price at ``chosen``.
 
+    ``iv`` and ``allowed`` are where each outcome's best price is sought: the allowed
+    prices, which may be wider than the decision's own range (see :func:`choose`).
+
     The value of knowing is None when, with a side of the allowed prices open, outcomes of
     non-negligible weight have no finite best price (their objective grows without limit).
     """
@@ -310,6 +313,7 @@ def choose(
     values: dict[str, float],
     iv: Interval,
     *,
+    attainable: tuple[Interval, FloatArray | None] | None = None,
     decide_by: str,
     no_harm_check: bool,
     cost: float,
@@ -320,8 +324,11 @@ def choose(
 ) -> tuple[float, PriceDecision | None, list[FitWarning]]:
     """The price ``decide_by`` picks (the do-no-harm check applied), its figures and notes.
 
-    Without a usable covariance the point price stands and a warning says why.
+    ``attainable``: the allowed prices (interval and grid) without the decision's own limits,
+    where the value of knowing looks for each outcome's best (default: ``iv`` and
+    ``allowed``). Without a usable covariance the point price stands and a warning says why.
     """
+    wide, wide_grid = attainable if attainable is not None else (iv, allowed)
     law = predictor_law(fit, values)
     if law is None:
         reason = (
@@ -344,9 +351,9 @@ def choose(
             form=fit.form,
             decide_by=decide_by,
             cost=cost,
-            iv=iv,
+            iv=wide,
             reference=reference,
-            allowed=allowed,
+            allowed=wide_grid,
             chosen=chosen,
             current_price=current_price,
         )

@@ -196,6 +196,27 @@ def _curve(
     )
 
 
+def _attainable(
+    curve: DemandCurve,
+    fit: DemandFit,
+    constraints: PriceConstraints,
+    unit_cost: float | None,
+    current_price: float | None,
+    iv: Interval,
+    allowed: FloatArray | None,
+) -> tuple[Interval, FloatArray | None]:
+    """The prices allowed without the decision's own limits, and their grid if any: where
+    the value of knowing looks for each outcome's best."""
+    allowed_rules = constraints.without_decision_limits()
+    if allowed_rules is constraints:
+        return iv, allowed
+    wide = feasible_interval(
+        curve, fit, allowed_rules, unit_cost=unit_cost, current_price=current_price
+    )
+    grid = None if allowed is None else grid_prices(constraints, wide.low, wide.high)
+    return wide, grid
+
+
 def optimal_price(
     fit: DemandFit,
     *,
@@ -326,6 +347,7 @@ def optimal_price(
         fit,
         values,
         iv,
+        attainable=_attainable(curve, fit, constraints, unit_cost, current_price, iv, allowed),
         decide_by=decide_by,
         no_harm_check=no_harm_check,
         cost=cost,

@@ -17,6 +17,7 @@ Checked against closed forms that the code does not use:
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -36,6 +37,7 @@ from models import (
     optimal_price,
 )
 from models.pricing.calibrate import best_prices, optimum_spread
+from models.pricing.curve import DemandCurve
 from models.pricing.decide import PredictorLaw
 
 
@@ -133,3 +135,38 @@ def test_best_prices_are_the_profit_peaks_clipped_to_the_range(
     brute = grid[np.argmax((grid - cost)[None, :] * units, axis=1)]
     found = best_prices(law, draws, cost, low, high)
     assert found == pytest.approx(brute, rel=2e-3)
+
+
+def test_the_value_of_knowing_looks_past_the_calibration_limit() -> None:
+    # The calibration cuts the move short; the value of knowing is still what knowing the
+    # curve would be worth among the prices allowed, E[max_p f(p | theta)] - E[f(chosen |
+    # theta)] over the business bounds (definition of the expected value of perfect
+    # information), checked here by brute-force Monte Carlo over the coefficients.
+    fit, cost = _constant_elasticity_fit(-2.5, 0.30, seed=9)
+    bounds = PriceConstraints(min_price=6.0, max_price=14.0)
+    found = move_evidence(fit, unit_cost=cost, current_price=9.0, constraints=bounds)
+    assert found is not None
+    limit = calibrated_limit(found, 0.2 * found.spread**2, 9.0)
+    assert limit is not None and limit.decision_only
+    held = PriceConstraints(min_price=6.0, max_price=14.0, named_limits=(limit,))
+    answer = optimal_price(fit, unit_cost=cost, current_price=9.0, constraints=held)
+    assert answer.binding_constraints == (CALIBRATION,)
+    chosen = answer.recommended.price
+    assert answer.decision_figures is not None
+    value = answer.decision_figures.value_of_knowing
+    rng = np.random.default_rng(5)
+    draws = rng.multivariate_normal(fit.params, fit.cov, size=20_000, method="eigh")
+    curve = DemandCurve.from_fit(fit, params=draws)
+    prices = np.geomspace(6.0, 14.0, 1601)
+    best = curve.objective(prices[None, :], cost).max(axis=1)
+    brute = float(np.mean(best - curve.objective(chosen, cost)[:, 0]))
+    # 2e4 draws and a 1601-point grid: agreement to 3%.
+    assert value == pytest.approx(brute, rel=0.03)
+    # The same limit as a rule on the allowed prices gives the value within them: smaller.
+    as_rule = PriceConstraints(
+        min_price=6.0, max_price=14.0, named_limits=(replace(limit, decision_only=False),)
+    )
+    narrow = optimal_price(fit, unit_cost=cost, current_price=9.0, constraints=as_rule)
+    assert narrow.recommended.price == pytest.approx(chosen, rel=1e-12)
+    assert narrow.decision_figures is not None
+    assert narrow.decision_figures.value_of_knowing < 0.5 * value
