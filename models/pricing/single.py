@@ -386,7 +386,7 @@ def optimal_price(
         uncertainty, extra = draw_uncertainty(
             fit,
             values,
-            constraints,
+            constraints.without_decision_limits(),  # each draw's best among allowed prices
             objective=objective,
             unit_cost=unit_cost,
             current_price=current_price,

@@ -170,3 +170,11 @@ def test_the_value_of_knowing_looks_past_the_calibration_limit() -> None:
     assert narrow.recommended.price == pytest.approx(chosen, rel=1e-12)
     assert narrow.decision_figures is not None
     assert narrow.decision_figures.value_of_knowing < 0.5 * value
+    # Likewise the interval of each draw's best price spans the allowed prices, not the
+    # calibrated reach (the point move is about -10% with a spread of about 5%).
+    drawn = optimal_price(
+        fit, unit_cost=cost, current_price=9.0, constraints=held, uncertainty_draws=400
+    )
+    assert drawn.recommended.price == pytest.approx(chosen, rel=1e-12)
+    assert drawn.uncertainty is not None and drawn.uncertainty.price_interval is not None
+    assert drawn.uncertainty.price_interval[0] < 0.97 * limit.low
