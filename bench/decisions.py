@@ -144,10 +144,9 @@ def curve_profit(
 
     def units(p: FloatArray) -> FloatArray:
         g = law.g(p)[None, :]
-        eta = offsets[:, None] + coefs[:, None] * g
-        if law.linear:
-            return np.maximum(eta, 0.0)
-        return np.exp(eta + 0.5 * rest)
+        eta: FloatArray = offsets[:, None] + coefs[:, None] * g
+        result: FloatArray = np.maximum(eta, 0.0) if law.linear else np.exp(eta + 0.5 * rest)
+        return result
 
     return lambda p: (p - cost)[None, :] * units(p)
 
