@@ -152,6 +152,7 @@ def move_evidence(
         current_price=current_price,
         constraints=constraints,
         scenario=scenario,
+        decision_figures=False,  # only the prices are read
     )
     try:
         point = price_by(decide_by="point")

@@ -316,6 +316,7 @@ def choose(
     attainable: tuple[Interval, FloatArray | None] | None = None,
     decide_by: str,
     no_harm_check: bool,
+    with_figures: bool = True,
     cost: float,
     current_price: float | None,
     reference: float,
@@ -324,6 +325,7 @@ def choose(
 ) -> tuple[float, PriceDecision | None, list[FitWarning]]:
     """The price ``decide_by`` picks (the do-no-harm check applied), its figures and notes.
 
+    ``with_figures=False`` (and no check) returns no figures and skips their quadrature.
     ``attainable``: the allowed prices (interval and grid) without the decision's own limits,
     where the value of knowing looks for each outcome's best (default: ``iv`` and
     ``allowed``). Without a usable covariance the point price stands and a warning says why.
@@ -358,6 +360,8 @@ def choose(
             current_price=current_price,
         )
 
+    if not (with_figures or no_harm_check):
+        return price, None, []
     found = figures(price)
     if no_harm_check and may_hold(current_price, iv, allowed) and not no_harm(found):
         assert current_price is not None

@@ -232,6 +232,7 @@ def optimal_price(
     money: MoneyText = plain_money,
     decide_by: str = "point",
     no_harm_check: bool = False,
+    decision_figures: bool = True,
 ) -> PriceRecommendation:
     """The price that maximises expected profit or revenue under business constraints.
 
@@ -270,6 +271,9 @@ def optimal_price(
     no_harm_check : bool
         Keep the current price unless the chosen one wins on average and in at least 80%
         of the estimate's distribution (needs a current price the constraints allow).
+    decision_figures : bool
+        False leaves the answer's ``decision_figures`` out (None) and skips their quadrature,
+        for callers that need only the price (the check still works them out when on).
 
     Returns
     -------
@@ -350,6 +354,7 @@ def optimal_price(
         attainable=_attainable(curve, fit, constraints, unit_cost, current_price, iv, allowed),
         decide_by=decide_by,
         no_harm_check=no_harm_check,
+        with_figures=decision_figures,
         cost=cost,
         current_price=current_price,
         reference=reference,

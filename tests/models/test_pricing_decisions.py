@@ -242,3 +242,28 @@ def test_expected_without_an_upper_price_limit_has_no_finite_optimum(form: str) 
     assert cautious.decision_figures is not None
     if form == "log-log":
         assert cautious.decision_figures.value_of_knowing is None
+
+
+@pytest.mark.parametrize("rule", ["point", "expected", "cautious"])
+def test_leaving_the_figures_out_changes_no_price(rule: str) -> None:
+    # decision_figures=False skips only the report: the price is the same to the last bit,
+    # with and without the do-no-harm check (which still works its figures out).
+    fit, cost = noisy_fit("log-log")
+    current = 1.05 * cost / COST_SHARE
+    for check in (False, True):
+        full, bare = (
+            optimal_price(
+                fit,
+                unit_cost=cost,
+                current_price=current,
+                constraints=limits(fit),
+                decide_by=rule,
+                no_harm_check=check,
+                decision_figures=figures,
+            )
+            for figures in (True, False)
+        )
+        assert bare.recommended.price == full.recommended.price
+        assert bare.binding_constraints == full.binding_constraints
+        assert full.decision_figures is not None
+        assert (bare.decision_figures is None) == (not check)
