@@ -164,7 +164,9 @@ def value_of_knowing(
     solved = np.all(np.isfinite(optimum), axis=1)
     if not solved.any():
         return None
-    ones = [int(d) for d in np.flatnonzero(solved)]
-    best = np.array([batch.draw(d).objective(optimum[d], costs) for d in ones])
-    chosen = np.array([batch.draw(d).objective(recommended, costs) for d in ones])
-    return float(np.mean(np.maximum(best - chosen, 0.0)))
+    chosen = np.broadcast_to(recommended, optimum.shape)
+    # Every draw at once (the demand carries the draws axis); unsolved draws are left out.
+    gain = batch.objective(np.where(solved[:, None], optimum, chosen), costs) - batch.objective(
+        chosen.copy(), costs
+    )
+    return float(np.mean(np.maximum(gain[solved], 0.0)))
